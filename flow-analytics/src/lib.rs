@@ -1,0 +1,1 @@
+//! Drop analysis over flowsift Parquet files.

@@ -1,0 +1,1 @@
+//! End-to-end tests: capture to Parquet to analytics.

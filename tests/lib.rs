@@ -1,0 +1,1 @@
+//! End-to-end test harness crate (tests live in `e2e/`).

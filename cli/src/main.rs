@@ -1,1 +1,7 @@
-fn main() {}
+//! `flowsift`: where, and why, are packets being dropped?
+
+use std::process::ExitCode;
+
+fn main() -> ExitCode {
+    flowsift::run_main()
+}

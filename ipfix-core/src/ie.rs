@@ -1,0 +1,1 @@
+//! The IANA IPFIX Information Element registry.

@@ -109,9 +109,8 @@ impl ForwardingStatus {
         Self((v & 0xFFFF_FFFF) as u32)
     }
 
-    /// The least-significant octet, the only one with a defined meaning
-    /// (IANA IE 89: "only the least significant octet" carries it; the rest
-    /// is reserved).
+    /// The least-significant octet, the only one with a defined meaning;
+    /// the other bits are reserved (IANA IE 89, facts sheet §5.1).
     #[must_use]
     pub const fn octet(self) -> u8 {
         (self.0 & 0xFF) as u8

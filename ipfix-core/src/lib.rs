@@ -69,6 +69,8 @@
 mod data_type;
 mod error;
 mod field;
+#[doc(hidden)]
+pub mod harness;
 pub mod ie;
 mod message;
 mod plan;

@@ -38,13 +38,18 @@
 //!     .udp(50000, 4739)
 //!     .write(&mut packet, &message)?;
 //!
-//! // Classic pcap: file header (little endian, microseconds, LINKTYPE_RAW
-//! // 101), then one record header (seconds, microseconds, lengths) + data.
+//! // Classic pcap, little endian: file header (magic for microsecond
+//! // timestamps, version 2.4, zone, sigfigs, snaplen, LINKTYPE_RAW = 101),
+//! // then one record header (seconds, microseconds, captured and original
+//! // length) and the packet.
 //! let mut pcap = Vec::new();
-//! for v in [0xa1b2_c3d4u32] { pcap.extend(v.to_le_bytes()); }
-//! for v in [2u16, 4] { pcap.extend(v.to_le_bytes()); }
-//! for v in [0u32, 0, 65535, 101, 1_700_000_000, 250_000] { pcap.extend(v.to_le_bytes()); }
-//! for _ in 0..2 { pcap.extend((packet.len() as u32).to_le_bytes()); }
+//! pcap.extend(0xa1b2_c3d4u32.to_le_bytes());
+//! pcap.extend(2u16.to_le_bytes());
+//! pcap.extend(4u16.to_le_bytes());
+//! let len = packet.len() as u32;
+//! for v in [0, 0, 65535, 101, 1_700_000_000, 250_000, len, len] {
+//!     pcap.extend(u32::to_le_bytes(v));
+//! }
 //! pcap.extend(&packet);
 //!
 //! let mut reader = CaptureReader::new(&pcap[..], 0, CaptureOptions::default())?;

@@ -454,8 +454,13 @@ fn emit(stream: &mut Stream, data: Vec<u8>, events: &mut Events, stats: &mut Cap
 /// counts what is left.
 fn flush(stream: &mut Stream, charged: &mut usize, events: &mut Events, stats: &mut CaptureStats) {
     while !stream.ooo.is_empty() {
+        let before = (stream.ooo.len(), stream.next);
         skip_gap(stream, charged, None, stats);
+        drain_ooo(stream, charged, stats);
         deliver(stream, false, events, stats);
+        if (stream.ooo.len(), stream.next) == before {
+            break; // cannot happen (keys stay above `next`); never spin
+        }
     }
     deliver(stream, true, events, stats);
     drop_pending(stream, stats);

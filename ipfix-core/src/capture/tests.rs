@@ -293,15 +293,34 @@ mod no_panic {
     use super::*;
     use proptest::prelude::*;
 
+    /// Reads everything and checks invariants: with `PortFilter::Any`,
+    /// every message is exactly one plausibly framed message (RFC 7011
+    /// §3.1 Length = octets delivered), and only sessions that delivered a
+    /// message are ended; at most one error, and it comes last.
     fn drain(bytes: &[u8]) {
-        if let Ok(reader) = CaptureReader::new(bytes, 0, CaptureOptions::default()) {
-            // Bounded: every step consumes input or ends.
-            for _ in reader.take(100_000) {}
+        let Ok(reader) = CaptureReader::new(bytes, 0, CaptureOptions::default()) else { return };
+        let mut seen = std::collections::HashSet::new();
+        let mut errored = false;
+        // Bounded: every step consumes input or ends.
+        for ev in reader.take(100_000) {
+            assert!(!errored, "nothing after an error");
+            match ev {
+                Ok(CaptureEvent::Message { session, data, .. }) => {
+                    assert!(super::frame::plausible(&data));
+                    assert_eq!(super::frame::header(&data).map(|h| h.1), Some(data.len()));
+                    seen.insert(session);
+                }
+                Ok(CaptureEvent::SessionEnded { session }) => assert!(seen.contains(&session)),
+                Err(_) => errored = true,
+            }
         }
     }
 
     proptest! {
-        #![proptest_config(ProptestConfig::with_cases(256))]
+        // CAPTURE_FUZZ_CASES=100000 for a longer run.
+        #![proptest_config(ProptestConfig::with_cases(
+            std::env::var("CAPTURE_FUZZ_CASES").ok().and_then(|v| v.parse().ok()).unwrap_or(256)
+        ))]
 
         #[test]
         fn arbitrary_pcap_bodies(body in proptest::collection::vec(any::<u8>(), 0..600)) {
@@ -320,6 +339,25 @@ mod no_panic {
         }
 
         #[test]
+        fn framed_pcapng_blocks_with_arbitrary_bodies(
+            blocks in proptest::collection::vec(
+                (prop_oneof![Just(1u32), Just(2), Just(3), Just(4), Just(5), Just(6), Just(9), Just(10),
+                             Just(0xbad), Just(0x4000_0bad), Just(0x8000_0001), any::<u32>()],
+                 proptest::collection::vec(any::<u8>(), 0..80)),
+                0..12),
+            big_endian in any::<bool>(),
+        ) {
+            // Valid block framing, arbitrary contents: reaches every block
+            // parser of pcap-parser.
+            let mut w = PcapNgWriter::new(big_endian);
+            w.interface(1, 0, None);
+            for (kind, body) in &blocks {
+                w.raw_block(*kind, body);
+            }
+            drain(&w.finish());
+        }
+
+        #[test]
         fn arbitrary_ipfix_files(body in proptest::collection::vec(any::<u8>(), 0..600)) {
             let mut bytes = ipfix_message(1, 16);
             bytes.extend(&body);
@@ -333,17 +371,69 @@ mod no_panic {
         }
 
         #[test]
-        fn mutated_tcp_streams(cuts in proptest::collection::vec((0usize..200, 1usize..60, any::<u8>()), 1..12)) {
+        fn mutated_tcp_streams(cuts in proptest::collection::vec((0usize..200, 1usize..60, any::<u8>(), 0u8..16), 1..12)) {
             // Random segments of a real stream, some corrupted, any order.
             let (e, c) = (sa("192.0.2.1:1"), sa("192.0.2.2:4739"));
             let s: Vec<u8> = (0..5).flat_map(|i| ipfix_message(i, 40)).collect();
-            let frames: Vec<Vec<u8>> = cuts.iter().map(|&(off, len, x)| {
+            let frames: Vec<Vec<u8>> = cuts.iter().map(|&(off, len, x, f)| {
                 let end = (off + len).min(s.len());
                 let mut p = s[off.min(end)..end].to_vec();
                 if let Some(b) = p.first_mut() { *b ^= x; }
-                tcp_frame(e, c, 1000 + off as u32, ACK, &p)
+                let flags = Flags { syn: f & 1 != 0, fin: f & 2 != 0, rst: f & 4 != 0, ack: f & 8 != 0 };
+                let (src, dst) = if f == 15 { (c, e) } else { (e, c) };
+                tcp_frame(src, dst, 1000u32.wrapping_add(off as u32).wrapping_sub(u32::from(flags.syn)), flags, &p)
             }).collect();
             drain(&pcap_of(1, &frames));
         }
     }
+}
+
+#[test]
+fn tcp_over_ipv6_any_port_rst_and_reconnect() {
+    // Any port: a stream that starts with a plausible header is IPFIX.
+    let (exp, col) = (sa("[2001:db8::10]:41000"), sa("[2001:db8::20]:9996"));
+    let m1 = ipfix_message(1, 64);
+    let m2 = ipfix_message(2, 16);
+    let frames = vec![
+        tcp_frame(exp, col, 7, SYN, &[]),
+        tcp_frame(exp, col, 8, ACK, &m1),
+        tcp_frame(col, exp, 99, RST, &[]), // reset by the collector side
+        tcp_frame(exp, col, 500, SYN, &[]), // same 4-tuple, new connection
+        tcp_frame(exp, col, 501, ACK, &m2),
+    ];
+    let (events, err, stats) = read(&pcap_of(1, &frames), CaptureOptions::default());
+    assert!(err.is_none());
+    let first = TransportSession::tcp(exp, col);
+    let mut second = first;
+    second.instance = 1;
+    assert_eq!(
+        events,
+        vec![
+            CaptureEvent::Message { session: first, received: Some(T0 + Duration::from_millis(1)), data: m1 },
+            CaptureEvent::SessionEnded { session: first },
+            CaptureEvent::Message { session: second, received: Some(T0 + Duration::from_millis(4)), data: m2 },
+        ]
+    );
+    // The capture ended, the second connection did not: no SessionEnded.
+    assert_eq!(stats.sessions_ended, 1);
+    assert_eq!(stats.tcp_sessions, 2);
+}
+
+#[test]
+fn tcp_port_filter_and_mid_stream_start() {
+    // Capture starts mid-message: the tail is skipped, framing is found
+    // again by the RFC 5655 §10.3 check.
+    let (exp, col) = (sa("192.0.2.7:40000"), sa("203.0.113.1:4739"));
+    let msgs: Vec<Vec<u8>> = (1..=3).map(|i| ipfix_message(i, 48)).collect();
+    let s = msgs.concat();
+    let frames = vec![
+        tcp_frame(exp, col, 5000, ACK, &s[30..]),
+        tcp_frame(sa("192.0.2.7:40001"), sa("203.0.113.1:80"), 1, ACK, b"GET /"),
+    ];
+    let opts = CaptureOptions::default().with_ports(PortFilter::ipfix_port());
+    let (events, err, stats) = read(&pcap_of(1, &frames), opts);
+    assert!(err.is_none());
+    assert_eq!(messages(&events).into_iter().map(|m| m.2).collect::<Vec<_>>(), msgs[1..].to_vec());
+    assert_eq!(stats.skipped_bytes(SkipReason::TcpResync), 18);
+    assert_eq!(stats.skipped(SkipReason::PortFiltered), 1);
 }

@@ -1,0 +1,900 @@
+//! The drop query: a builder, and the polars plan it runs.
+//!
+//! # Measures
+//!
+//! Per record, with `N` the record's `samplingRate` (1-in-N) when known and
+//! non-zero, else 1:
+//!
+//! - total packets `t` = `packetDeltaCount`, else `packetTotalCount`, else 0;
+//! - dropped packets `k` = `t` when `forwardingOutcome` is `dropped` (falling
+//!   back to `droppedPacketDeltaCount` when the record has no packet count),
+//!   else `droppedPacketDeltaCount`, else 0;
+//! - octets likewise from `octetDeltaCount` / `octetTotalCount` /
+//!   `droppedOctetDeltaCount`.
+//!
+//! Group figures are sums of `N·t` and `N·k`: each sampled packet stands for
+//! N packets, the inverse-selection-fraction scaling of RFC 5474 §5.4 and
+//! RFC 5475. Records whose rate is unknown count once, and the summary says
+//! so ([`SamplingCoverage`]).
+//!
+//! # Interval on dropped packets
+//!
+//! Model: 1-in-N sampling as uniform probabilistic sampling (RFC 5475
+//! §5.2.2.1), each packet selected independently with probability `p = 1/N`.
+//! The Horvitz–Thompson estimator (Horvitz & Thompson 1952, "A
+//! generalization of sampling without replacement from a finite universe",
+//! JASA 47(260)) weights each selected packet by `1/p = N`, giving `Σ N·k`.
+//! Under independent selection its unbiased variance estimate is
+//! `Σ (1−p)/p² = Σ N(N−1)` over selected packets, that is `Σ N(N−1)·k` over
+//! records. The approximate 95% interval is the normal one,
+//! `estimate ± 1.96·√var`, with the lower bound raised to the sampled count
+//! `Σ k` (at least the packets seen were dropped). Unsampled and unknown-rate
+//! records (`N = 1`) add no variance.
+
+use std::path::PathBuf;
+use std::str::FromStr;
+use std::time::Duration as StdDuration;
+
+use chrono::{DateTime, Utc};
+use polars::prelude::*;
+
+use crate::contract::{self, time_dtype};
+use crate::dimension::{Dimension, DimensionPlan};
+use crate::error::Error;
+use crate::input::Inputs;
+use crate::table::{DropSummary, DropTable, SamplingCoverage, TopGroup};
+
+/// The normal quantile for a two-sided 95% interval (z₀.₉₇₅ ≈ 1.959964;
+/// any statistics table, e.g. NIST/SEMATECH e-Handbook §1.3.6.7.1).
+const Z_95: f64 = 1.96;
+
+/// Output column names of the measures.
+pub mod columns {
+    /// Estimated dropped packets.
+    pub const DROPPED_PACKETS: &str = "droppedPackets";
+    /// Estimated dropped octets.
+    pub const DROPPED_OCTETS: &str = "droppedOctets";
+    /// Estimated total packets.
+    pub const TOTAL_PACKETS: &str = "totalPackets";
+    /// Estimated total octets.
+    pub const TOTAL_OCTETS: &str = "totalOctets";
+    /// `droppedPackets / totalPackets`, null when no packets.
+    pub const DROP_RATIO: &str = "dropRatio";
+    /// Number of flow records in the group.
+    pub const FLOW_RECORDS: &str = "flowRecords";
+    /// Lower bound of the approximate 95% interval on dropped packets.
+    pub const DROPPED_PACKETS_LOW: &str = "droppedPacketsLow";
+    /// Upper bound of the approximate 95% interval on dropped packets.
+    pub const DROPPED_PACKETS_HIGH: &str = "droppedPacketsHigh";
+    /// Start of the time bucket (with `every`).
+    pub const BUCKET_START: &str = "bucketStart";
+    /// The forwarding reason with the most dropped packets in the group
+    /// (present when `reason` is not itself a dimension).
+    pub const TOP_REASON: &str = "topReason";
+    /// All measure columns, in output order.
+    pub const MEASURES: [&str; 8] = [
+        DROPPED_PACKETS,
+        DROPPED_OCTETS,
+        TOTAL_PACKETS,
+        TOTAL_OCTETS,
+        DROP_RATIO,
+        FLOW_RECORDS,
+        DROPPED_PACKETS_LOW,
+        DROPPED_PACKETS_HIGH,
+    ];
+}
+
+use columns::*;
+
+// Working columns, never in the output.
+const W_N: &str = "_fs_n";
+const W_K: &str = "_fs_k";
+const W_DP: &str = "_fs_dp";
+const W_DO: &str = "_fs_do";
+const W_TP: &str = "_fs_tp";
+const W_TO: &str = "_fs_to";
+const W_VAR: &str = "_fs_var";
+const W_KNOWN: &str = "_fs_known";
+const W_TIME: &str = "_fs_time";
+const A_SAMPLED: &str = "_fs_sampled";
+const A_MAX_RATE: &str = "_fs_max_rate";
+const A_FIRST: &str = "_fs_first";
+const A_LAST: &str = "_fs_last";
+
+/// What the groups are ordered by (always largest first).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+#[non_exhaustive]
+pub enum SortKey {
+    /// Estimated dropped packets (the default).
+    #[default]
+    DroppedPackets,
+    /// Estimated dropped octets.
+    DroppedOctets,
+    /// Drop ratio.
+    DropRatio,
+    /// Estimated total packets.
+    TotalPackets,
+    /// Estimated total octets.
+    TotalOctets,
+    /// Number of flow records.
+    FlowRecords,
+}
+
+impl SortKey {
+    /// The names [`SortKey::from_str`] accepts, in variant order.
+    pub const NAMES: [&'static str; 6] = [
+        "dropped-packets",
+        "dropped-octets",
+        "drop-ratio",
+        "total-packets",
+        "total-octets",
+        "flow-records",
+    ];
+
+    /// The output column this key sorts on.
+    pub fn column(self) -> &'static str {
+        match self {
+            SortKey::DroppedPackets => DROPPED_PACKETS,
+            SortKey::DroppedOctets => DROPPED_OCTETS,
+            SortKey::DropRatio => DROP_RATIO,
+            SortKey::TotalPackets => TOTAL_PACKETS,
+            SortKey::TotalOctets => TOTAL_OCTETS,
+            SortKey::FlowRecords => FLOW_RECORDS,
+        }
+    }
+}
+
+impl FromStr for SortKey {
+    type Err = Error;
+
+    fn from_str(text: &str) -> Result<Self, Self::Err> {
+        Ok(match text.trim() {
+            "dropped-packets" => SortKey::DroppedPackets,
+            "dropped-octets" => SortKey::DroppedOctets,
+            "drop-ratio" => SortKey::DropRatio,
+            "total-packets" => SortKey::TotalPackets,
+            "total-octets" => SortKey::TotalOctets,
+            "flow-records" => SortKey::FlowRecords,
+            other => {
+                return Err(Error::UnknownSortKey {
+                    name: other.to_string(),
+                })
+            }
+        })
+    }
+}
+
+/// A drop query over flowsift Parquet files: where, and why, packets were
+/// dropped, grouped by [`Dimension`]s.
+///
+/// Built with `with_*` methods, then [`run`](DropQuery::run). Defaults:
+/// grouped by [`Dimension::Reason`], no time buckets, no time bounds, no
+/// filter, every group kept, sorted by dropped packets.
+#[derive(Debug, Clone)]
+pub struct DropQuery {
+    inputs: Vec<PathBuf>,
+    by: Vec<Dimension>,
+    every: Option<StdDuration>,
+    from: Option<DateTime<Utc>>,
+    to: Option<DateTime<Utc>>,
+    filter_sql: Option<String>,
+    top: usize,
+    sort: SortKey,
+}
+
+impl DropQuery {
+    /// A query over Parquet files, directories (searched recursively, Hive
+    /// partitions read as columns) or glob patterns.
+    pub fn new<I, P>(inputs: I) -> Self
+    where
+        I: IntoIterator<Item = P>,
+        P: Into<PathBuf>,
+    {
+        DropQuery {
+            inputs: inputs.into_iter().map(Into::into).collect(),
+            by: vec![Dimension::Reason],
+            every: None,
+            from: None,
+            to: None,
+            filter_sql: None,
+            top: 0,
+            sort: SortKey::default(),
+        }
+    }
+
+    /// Groups by these dimensions, in this order. An empty list gives one
+    /// row of totals.
+    pub fn with_by(mut self, dims: impl IntoIterator<Item = Dimension>) -> Self {
+        self.by = dims.into_iter().collect();
+        self
+    }
+
+    /// Adds time buckets of this width (aligned to the Unix epoch) as the
+    /// first dimension, output column `bucketStart`. Record time is
+    /// `flowEndTime`, else `exportTime`.
+    pub fn with_every(mut self, every: StdDuration) -> Self {
+        self.every = Some(every);
+        self
+    }
+
+    /// Keeps records whose time (`flowEndTime`, else `exportTime`) is at
+    /// or after `from`.
+    pub fn with_from(mut self, from: DateTime<Utc>) -> Self {
+        self.from = Some(from);
+        self
+    }
+
+    /// Keeps records whose time is before `to` (exclusive).
+    pub fn with_to(mut self, to: DateTime<Utc>) -> Self {
+        self.to = Some(to);
+        self
+    }
+
+    /// Keeps records for which this SQL boolean expression over the input
+    /// columns is true, e.g. `protocolIdentifier = 6 AND exporter =
+    /// '192.0.2.1'`. Parsed by polars' SQL front end; identifiers are
+    /// case-sensitive column names.
+    pub fn with_filter_sql(mut self, expr: impl Into<String>) -> Self {
+        self.filter_sql = Some(expr.into());
+        self
+    }
+
+    /// Keeps the first `n` groups after sorting (per time bucket with
+    /// [`with_every`](Self::with_every)); 0 keeps all.
+    pub fn with_top(mut self, n: usize) -> Self {
+        self.top = n;
+        self
+    }
+
+    /// Orders groups by this measure, largest first.
+    pub fn with_sort(mut self, key: SortKey) -> Self {
+        self.sort = key;
+        self
+    }
+
+    /// Runs the query.
+    ///
+    /// Reads only the columns the dimensions, measures and filter need;
+    /// the time bounds and filter are pushed down to the Parquet scan.
+    ///
+    /// # Errors
+    /// Inputs missing or not Parquet, unknown columns, a filter that does
+    /// not parse or is not boolean, an empty time range or zero bucket
+    /// width, or a polars failure.
+    pub fn run(&self) -> Result<DropTable, Error> {
+        let prepared = self.prepare()?;
+        let Prepared {
+            stage1,
+            plans,
+            key_names,
+            companions,
+            reason_is_key,
+        } = prepared;
+        let bucketed = self.every.is_some();
+        let stage1 = stage1.collect()?;
+
+        // Stage 2: merge reasons into groups, naming the top reason.
+        let mut out_keys: Vec<String> = Vec::new();
+        if bucketed {
+            out_keys.push(BUCKET_START.to_string());
+        }
+        out_keys.extend(key_names.iter().cloned());
+        let table = regroup(&stage1, &out_keys, &companions, !reason_is_key)?;
+        let table = sort_groups(table, &out_keys, self.sort, bucketed)?;
+
+        let totals = regroup(&stage1, &[], &[], false)?;
+        let headline_groups = if plans.is_empty() {
+            None
+        } else if bucketed {
+            let groups = regroup(&stage1, &key_names, &companions, !reason_is_key)?;
+            Some(sort_groups(groups, &key_names, self.sort, false)?)
+        } else {
+            Some(table.clone())
+        };
+        let top = match &headline_groups {
+            Some(groups) if groups.height() > 0 => Some(top_group(groups, &plans, reason_is_key)?),
+            _ => None,
+        };
+        let summary = summarize(&totals, top)?;
+
+        let table = keep_top(table, self.top, bucketed)?;
+        let mut order: Vec<String> = Vec::new();
+        for key in &out_keys {
+            order.push(key.clone());
+            // Names go right after their ids.
+            for plan in &plans {
+                if plan.keys.first().map(|(k, _)| k) == Some(key) {
+                    order.extend(plan.companions.iter().cloned());
+                }
+            }
+        }
+        if !reason_is_key {
+            order.push(TOP_REASON.to_string());
+        }
+        order.extend(MEASURES.iter().map(|s| s.to_string()));
+        let frame = table.select(order)?;
+        Ok(DropTable::new(frame, plans, self.every, !reason_is_key, summary))
+    }
+
+    /// The optimized polars plan of the scan-and-group stage, as text:
+    /// shows which columns each Parquet scan reads and which filters it
+    /// applies.
+    ///
+    /// # Errors
+    /// As [`run`](Self::run), short of executing the query.
+    pub fn explain(&self) -> Result<String, Error> {
+        Ok(self.prepare()?.stage1.describe_optimized_plan()?)
+    }
+
+    /// Validates the query, opens the inputs and builds the lazy stage-1
+    /// plan: records scanned, filtered, and grouped by dimensions, bucket
+    /// and reason.
+    fn prepare(&self) -> Result<Prepared, Error> {
+        let every_ns = self.every.map(every_nanos).transpose()?;
+        let from_ns = self.from.map(|t| time_nanos(&t)).transpose()?;
+        let to_ns = self.to.map(|t| time_nanos(&t)).transpose()?;
+        if let (Some(from), Some(to)) = (self.from, self.to) {
+            if from >= to {
+                return Err(Error::EmptyTimeRange {
+                    from: crate::render::rfc3339(&from),
+                    to: crate::render::rfc3339(&to),
+                });
+            }
+        }
+        let plans: Vec<DimensionPlan> = self.by.iter().map(Dimension::plan).collect();
+        let key_names = key_names(&plans)?;
+        let filter = self.parse_filter()?;
+
+        let inputs = Inputs::open(&self.inputs)?;
+
+        // Which input columns to read, and as which type.
+        let mut wanted: Vec<String> = [
+            contract::PACKET_DELTA_COUNT,
+            contract::PACKET_TOTAL_COUNT,
+            contract::OCTET_DELTA_COUNT,
+            contract::OCTET_TOTAL_COUNT,
+            contract::DROPPED_PACKET_DELTA_COUNT,
+            contract::DROPPED_OCTET_DELTA_COUNT,
+            contract::FORWARDING_OUTCOME,
+            contract::FORWARDING_REASON,
+            contract::SAMPLING_RATE,
+            contract::FLOW_END_TIME,
+            contract::EXPORT_TIME,
+        ]
+        .iter()
+        .map(|s| s.to_string())
+        .collect();
+        for plan in &plans {
+            wanted.extend(plan.reads.iter().cloned());
+        }
+        if let Some((_, expr)) = &filter {
+            wanted.extend(expr.clone().meta().root_names().iter().map(|s| s.to_string()));
+        }
+        let mut columns: Vec<(String, DataType)> = Vec::new();
+        for name in wanted {
+            if columns.iter().any(|(seen, _)| *seen == name) {
+                continue;
+            }
+            let dtype = match (inputs.dtype(&name), contract::dtype_of(&name)) {
+                (Some(dtype), _) => dtype.clone(),
+                (None, Some(dtype)) => dtype,
+                (None, None) => return Err(Error::UnknownColumn { name }),
+            };
+            columns.push((name, dtype));
+        }
+        let mut lf = inputs.frame(&columns)?;
+
+        // Filters first, on input columns only, so polars can push them
+        // into the scan.
+        let record_time = coalesce(&[
+            col(contract::FLOW_END_TIME).cast(time_dtype()),
+            col(contract::EXPORT_TIME).cast(time_dtype()),
+        ]);
+        if let Some((text, expr)) = filter {
+            let dtype = lf
+                .clone()
+                .select([expr.clone().alias("_fs_filter")])
+                .collect_schema()
+                .map_err(|e| Error::BadFilter {
+                    expr: text.clone(),
+                    reason: e.to_string(),
+                })?
+                .get("_fs_filter")
+                .cloned()
+                .unwrap_or(DataType::Null);
+            if dtype != DataType::Boolean {
+                return Err(Error::FilterNotBoolean {
+                    expr: text,
+                    dtype: dtype.to_string(),
+                });
+            }
+            lf = lf.filter(expr);
+        }
+        if let Some(from) = from_ns {
+            lf = lf.filter(record_time.clone().gt_eq(lit(from).cast(time_dtype())));
+        }
+        if let Some(to) = to_ns {
+            lf = lf.filter(record_time.clone().lt(lit(to).cast(time_dtype())));
+        }
+
+        let lf = lf.with_columns(record_measures(record_time));
+        let mut derived: Vec<Expr> = Vec::new();
+        let mut group1: Vec<String> = Vec::new();
+        if let Some(every) = every_ns {
+            derived.push(
+                (col(W_TIME).cast(DataType::Int64).floor_div(lit(every)) * lit(every))
+                    .cast(time_dtype())
+                    .alias(BUCKET_START),
+            );
+            group1.push(BUCKET_START.to_string());
+        }
+        for plan in &plans {
+            for (name, expr) in &plan.keys {
+                derived.push(expr.clone().alias(name.as_str()));
+                group1.push(name.clone());
+            }
+        }
+        let reason_is_key = key_names.iter().any(|k| k == contract::FORWARDING_REASON);
+        if !reason_is_key {
+            group1.push(contract::FORWARDING_REASON.to_string());
+        }
+        let companions: Vec<String> = plans
+            .iter()
+            .flat_map(|p| p.companions.iter().cloned())
+            .collect();
+
+        // Stage 1: one row per group and reason (and bucket).
+        let mut aggs = stage1_aggs();
+        aggs.extend(companion_aggs(&companions));
+        let stage1 = lf
+            .with_columns(derived)
+            .group_by(group1.iter().map(|s| col(s.as_str())).collect::<Vec<_>>())
+            .agg(aggs);
+        Ok(Prepared {
+            stage1,
+            plans,
+            key_names,
+            companions,
+            reason_is_key,
+        })
+    }
+
+    /// Parses the SQL filter, if any.
+    fn parse_filter(&self) -> Result<Option<(String, Expr)>, Error> {
+        let Some(text) = &self.filter_sql else {
+            return Ok(None);
+        };
+        let expr = polars::sql::sql_expr(text).map_err(|e| Error::BadFilter {
+            expr: text.clone(),
+            reason: e.to_string(),
+        })?;
+        Ok(Some((text.clone(), expr)))
+    }
+}
+
+/// A query ready to collect.
+struct Prepared {
+    /// Records grouped by bucket, dimension keys and reason.
+    stage1: LazyFrame,
+    plans: Vec<DimensionPlan>,
+    /// Dimension key columns (companions excluded), without the bucket.
+    key_names: Vec<String>,
+    /// Columns carried beside keys.
+    companions: Vec<String>,
+    /// Whether `forwardingReason` is one of the keys.
+    reason_is_key: bool,
+}
+
+/// The group-key output names of the dimensions, checked for clashes.
+fn key_names(plans: &[DimensionPlan]) -> Result<Vec<String>, Error> {
+    let mut names: Vec<String> = Vec::new();
+    for plan in plans {
+        for name in plan
+            .keys
+            .iter()
+            .map(|(k, _)| k)
+            .chain(plan.companions.iter())
+        {
+            if names.contains(name) || name == BUCKET_START || MEASURES.contains(&name.as_str()) {
+                return Err(Error::DuplicateDimension { name: name.clone() });
+            }
+            names.push(name.clone());
+        }
+    }
+    // Companions are carried, not grouped on.
+    let companions: Vec<&String> = plans.iter().flat_map(|p| p.companions.iter()).collect();
+    Ok(names
+        .into_iter()
+        .filter(|n| !companions.contains(&n))
+        .collect())
+}
+
+/// Per-record working columns: rate, sampled and scaled counts, variance
+/// term, record time.
+fn record_measures(record_time: Expr) -> Vec<Expr> {
+    use contract::*;
+    let u64_0 = || lit(0u64);
+    let rate = col(SAMPLING_RATE).cast(DataType::UInt64);
+    let known = rate.clone().gt(u64_0()).fill_null(lit(false));
+    let n = when(known.clone()).then(rate).otherwise(lit(1u64));
+    let whole_drop = col(FORWARDING_OUTCOME)
+        .eq(lit(OUTCOME_DROPPED))
+        .fill_null(lit(false));
+    let u64c = |name: &str| col(name).cast(DataType::UInt64);
+    let counts = |delta: &str, total: &str, dropped: &str| {
+        let t = coalesce(&[u64c(delta), u64c(total)]);
+        let k = when(whole_drop.clone())
+            .then(coalesce(&[t.clone(), u64c(dropped), u64_0()]))
+            .otherwise(coalesce(&[u64c(dropped), u64_0()]));
+        (coalesce(&[t, u64_0()]), k)
+    };
+    let (tp, kp) = counts(
+        PACKET_DELTA_COUNT,
+        PACKET_TOTAL_COUNT,
+        DROPPED_PACKET_DELTA_COUNT,
+    );
+    let (to, ko) = counts(OCTET_DELTA_COUNT, OCTET_TOTAL_COUNT, DROPPED_OCTET_DELTA_COUNT);
+    let nf = n.clone().cast(DataType::Float64);
+    vec![
+        n.clone().alias(W_N),
+        kp.clone().alias(W_K),
+        (kp.clone() * n.clone()).alias(W_DP),
+        (ko * n.clone()).alias(W_DO),
+        (tp * n.clone()).alias(W_TP),
+        (to * n).alias(W_TO),
+        // Horvitz–Thompson variance term N(N−1)·k (see module docs).
+        (nf.clone() * (nf - lit(1.0)) * kp.cast(DataType::Float64)).alias(W_VAR),
+        known.cast(DataType::UInt64).alias(W_KNOWN),
+        record_time.alias(W_TIME),
+    ]
+}
+
+/// Stage-1 aggregations over records.
+fn stage1_aggs() -> Vec<Expr> {
+    vec![
+        col(W_DP).sum().alias(DROPPED_PACKETS),
+        col(W_DO).sum().alias(DROPPED_OCTETS),
+        col(W_TP).sum().alias(TOTAL_PACKETS),
+        col(W_TO).sum().alias(TOTAL_OCTETS),
+        len().cast(DataType::UInt64).alias(FLOW_RECORDS),
+        col(W_K).sum().alias(A_SAMPLED),
+        col(W_VAR).sum().alias(W_VAR),
+        col(W_KNOWN).sum().alias(W_KNOWN),
+        col(W_N).max().alias(A_MAX_RATE),
+        col(W_TIME).min().alias(A_FIRST),
+        col(W_TIME).max().alias(A_LAST),
+    ]
+}
+
+/// First non-null value of each carried column.
+fn companion_aggs(companions: &[String]) -> Vec<Expr> {
+    companions
+        .iter()
+        .map(|c| col(c.as_str()).drop_nulls().first().alias(c.as_str()))
+        .collect()
+}
+
+/// Stage 2: merges stage-1 rows into groups by `keys` (one row of totals
+/// when `keys` is empty), then adds ratio and interval columns.
+fn regroup(
+    stage1: &DataFrame,
+    keys: &[String],
+    companions: &[String],
+    with_top_reason: bool,
+) -> Result<DataFrame, Error> {
+    let mut aggs: Vec<Expr> = [
+        DROPPED_PACKETS,
+        DROPPED_OCTETS,
+        TOTAL_PACKETS,
+        TOTAL_OCTETS,
+        FLOW_RECORDS,
+        A_SAMPLED,
+        W_VAR,
+        W_KNOWN,
+    ]
+    .iter()
+    .map(|c| col(*c).sum().alias(*c))
+    .collect();
+    aggs.push(col(A_MAX_RATE).max().alias(A_MAX_RATE));
+    aggs.push(col(A_FIRST).min().alias(A_FIRST));
+    aggs.push(col(A_LAST).max().alias(A_LAST));
+    aggs.extend(companion_aggs(companions));
+    if with_top_reason {
+        // The reason with most dropped packets; ties go to the name first
+        // in alphabetical order. Null when the group dropped nothing.
+        let order = SortMultipleOptions::default()
+            .with_order_descending_multi([true, false])
+            .with_nulls_last(true);
+        aggs.push(
+            when(col(DROPPED_PACKETS).max().gt(lit(0u64)))
+                .then(
+                    col(contract::FORWARDING_REASON)
+                        .sort_by([col(DROPPED_PACKETS), col(contract::FORWARDING_REASON)], order)
+                        .first(),
+                )
+                .otherwise(lit(NULL).cast(DataType::String))
+                .alias(TOP_REASON),
+        );
+    }
+    let lf = stage1.clone().lazy();
+    let grouped = if keys.is_empty() {
+        lf.select(aggs)
+    } else {
+        lf.group_by(keys.iter().map(|k| col(k.as_str())).collect::<Vec<_>>())
+            .agg(aggs)
+    };
+    let f64c = |name: &str| col(name).cast(DataType::Float64);
+    let half_width = lit(Z_95) * col(W_VAR).sqrt();
+    let low = f64c(DROPPED_PACKETS) - half_width.clone();
+    let floor = f64c(A_SAMPLED);
+    Ok(grouped
+        .with_columns([
+            when(f64c(TOTAL_PACKETS).gt(lit(0.0)))
+                .then(f64c(DROPPED_PACKETS) / f64c(TOTAL_PACKETS))
+                .otherwise(lit(NULL).cast(DataType::Float64))
+                .alias(DROP_RATIO),
+            when(low.clone().gt(floor.clone()))
+                .then(low)
+                .otherwise(floor)
+                .alias(DROPPED_PACKETS_LOW),
+            (f64c(DROPPED_PACKETS) + half_width).alias(DROPPED_PACKETS_HIGH),
+        ])
+        .collect()?)
+}
+
+/// Sorts groups: by bucket (oldest first) when bucketed, then the sort key
+/// (largest first, nulls last), then the keys for a stable order.
+fn sort_groups(
+    frame: DataFrame,
+    keys: &[String],
+    sort: SortKey,
+    bucketed: bool,
+) -> Result<DataFrame, Error> {
+    let mut by: Vec<String> = Vec::new();
+    let mut descending: Vec<bool> = Vec::new();
+    if bucketed {
+        by.push(BUCKET_START.to_string());
+        descending.push(false);
+    }
+    by.push(sort.column().to_string());
+    descending.push(true);
+    if sort != SortKey::DroppedPackets {
+        by.push(DROPPED_PACKETS.to_string());
+        descending.push(true);
+    }
+    for key in keys {
+        if by.contains(key) {
+            continue;
+        }
+        // Row encoding orders lists too, but plain keys suffice for a
+        // stable order and avoid depending on it.
+        let sortable = frame
+            .column(key)
+            .map(|c| !matches!(c.dtype(), DataType::List(_)))
+            .unwrap_or(false);
+        if sortable {
+            by.push(key.clone());
+            descending.push(false);
+        }
+    }
+    let options = SortMultipleOptions::default()
+        .with_order_descending_multi(descending)
+        .with_nulls_last(true)
+        .with_maintain_order(true);
+    Ok(frame.sort(by, options)?)
+}
+
+/// Keeps the first `n` rows, per bucket when bucketed (rows are sorted by
+/// bucket first). `n == 0` keeps all.
+fn keep_top(frame: DataFrame, n: usize, bucketed: bool) -> Result<DataFrame, Error> {
+    if n == 0 || frame.height() <= n {
+        return Ok(frame);
+    }
+    if !bucketed {
+        return Ok(frame.head(Some(n)));
+    }
+    let buckets = frame.column(BUCKET_START)?.as_materialized_series().clone();
+    let mut keep = Vec::with_capacity(frame.height());
+    let mut previous: Option<AnyValue<'_>> = None;
+    let mut seen = 0usize;
+    for i in 0..buckets.len() {
+        let bucket = buckets.get(i)?;
+        if previous.as_ref() != Some(&bucket) {
+            seen = 0;
+            previous = Some(bucket);
+        }
+        seen += 1;
+        keep.push(seen <= n);
+    }
+    let mask = BooleanChunked::from_slice("keep".into(), &keep);
+    Ok(frame.filter(&mask)?)
+}
+
+/// The first row of sorted groups, described for the headline.
+fn top_group(
+    groups: &DataFrame,
+    plans: &[DimensionPlan],
+    reason_is_key: bool,
+) -> Result<TopGroup, Error> {
+    let dimensions = plans
+        .iter()
+        .map(|plan| {
+            Ok((
+                plan.heading.clone(),
+                crate::render::key_text(groups, 0, plan)?,
+            ))
+        })
+        .collect::<Result<Vec<_>, Error>>()?;
+    let reason_column = if reason_is_key {
+        contract::FORWARDING_REASON
+    } else {
+        TOP_REASON
+    };
+    let reason = match groups.column(reason_column) {
+        Ok(column) => match column.get(0)? {
+            AnyValue::String(s) => Some(s.to_string()),
+            AnyValue::StringOwned(s) => Some(s.to_string()),
+            _ => None,
+        },
+        Err(_) => None,
+    };
+    Ok(TopGroup {
+        dimensions,
+        reason,
+        dropped_packets: u64_at(groups, DROPPED_PACKETS, 0)?,
+        drop_ratio: f64_at(groups, DROP_RATIO, 0)?,
+    })
+}
+
+/// Headline facts from the one-row totals frame.
+fn summarize(totals: &DataFrame, top: Option<TopGroup>) -> Result<DropSummary, Error> {
+    let records = u64_at(totals, FLOW_RECORDS, 0)?;
+    let known = u64_at(totals, W_KNOWN, 0)?;
+    let sampling = if records == 0 {
+        SamplingCoverage::NoRecords
+    } else if known == records {
+        SamplingCoverage::Complete
+    } else if known == 0 {
+        SamplingCoverage::Absent
+    } else {
+        SamplingCoverage::Partial {
+            known,
+            unknown: records - known,
+        }
+    };
+    Ok(DropSummary {
+        dropped_packets: u64_at(totals, DROPPED_PACKETS, 0)?,
+        dropped_octets: u64_at(totals, DROPPED_OCTETS, 0)?,
+        total_packets: u64_at(totals, TOTAL_PACKETS, 0)?,
+        total_octets: u64_at(totals, TOTAL_OCTETS, 0)?,
+        flow_records: records,
+        drop_ratio: f64_at(totals, DROP_RATIO, 0)?,
+        dropped_packets_low: f64_at(totals, DROPPED_PACKETS_LOW, 0)?,
+        dropped_packets_high: f64_at(totals, DROPPED_PACKETS_HIGH, 0)?,
+        first: time_at(totals, A_FIRST, 0)?,
+        last: time_at(totals, A_LAST, 0)?,
+        sampling,
+        scaled: u64_at(totals, A_MAX_RATE, 0)? > 1,
+        top,
+    })
+}
+
+/// An unsigned count at `row`, 0 when null or missing.
+fn u64_at(frame: &DataFrame, column: &str, row: usize) -> Result<u64, Error> {
+    Ok(match frame.column(column)?.get(row)? {
+        AnyValue::UInt64(v) => v,
+        AnyValue::UInt32(v) => u64::from(v),
+        AnyValue::Int64(v) => u64::try_from(v).unwrap_or(0),
+        _ => 0,
+    })
+}
+
+/// A float at `row`, `None` when null or not finite.
+fn f64_at(frame: &DataFrame, column: &str, row: usize) -> Result<Option<f64>, Error> {
+    Ok(match frame.column(column)?.get(row)? {
+        AnyValue::Float64(v) if v.is_finite() => Some(v),
+        _ => None,
+    })
+}
+
+/// A timestamp at `row`.
+fn time_at(frame: &DataFrame, column: &str, row: usize) -> Result<Option<DateTime<Utc>>, Error> {
+    Ok(crate::render::any_to_time(&frame.column(column)?.get(row)?))
+}
+
+/// Bucket width in nanoseconds.
+fn every_nanos(every: StdDuration) -> Result<i64, Error> {
+    match i64::try_from(every.as_nanos()) {
+        Ok(ns) if ns > 0 => Ok(ns),
+        _ => Err(Error::BadEvery),
+    }
+}
+
+/// Nanoseconds since 1970 of a time.
+fn time_nanos(time: &DateTime<Utc>) -> Result<i64, Error> {
+    time.timestamp_nanos_opt()
+        .ok_or_else(|| Error::TimeOutOfRange {
+            text: crate::render::rfc3339(time),
+        })
+}
+
+/// Parses a duration such as `30s`, `5m`, `1h`, `1d` or `1h30m`.
+///
+/// # Errors
+/// [`Error::BadDuration`] for anything else, including zero.
+pub fn parse_duration(text: &str) -> Result<StdDuration, Error> {
+    let bad = || Error::BadDuration {
+        text: text.to_string(),
+    };
+    let mut total: u64 = 0;
+    let mut digits = String::new();
+    let mut any = false;
+    for ch in text.trim().chars() {
+        if ch.is_ascii_digit() {
+            digits.push(ch);
+            continue;
+        }
+        let unit: u64 = match ch {
+            's' => 1,
+            'm' => 60,
+            'h' => 3600,
+            'd' => 86_400,
+            _ => return Err(bad()),
+        };
+        let value: u64 = digits.parse().map_err(|_| bad())?;
+        digits.clear();
+        total = value
+            .checked_mul(unit)
+            .and_then(|s| total.checked_add(s))
+            .ok_or_else(bad)?;
+        any = true;
+    }
+    if !digits.is_empty() || !any || total == 0 {
+        return Err(bad());
+    }
+    Ok(StdDuration::from_secs(total))
+}
+
+/// Parses an RFC 3339 time such as `2026-11-30T01:00:00Z` (any offset;
+/// converted to UTC).
+///
+/// # Errors
+/// [`Error::BadTime`] when the text is not RFC 3339.
+pub fn parse_time(text: &str) -> Result<DateTime<Utc>, Error> {
+    DateTime::parse_from_rfc3339(text.trim())
+        .map(|t| t.with_timezone(&Utc))
+        .map_err(|_| Error::BadTime {
+            text: text.to_string(),
+        })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn durations() {
+        assert_eq!(parse_duration("1m").ok(), Some(StdDuration::from_secs(60)));
+        assert_eq!(parse_duration("5m").ok(), Some(StdDuration::from_secs(300)));
+        assert_eq!(parse_duration("1h30m").ok(), Some(StdDuration::from_secs(5400)));
+        assert_eq!(parse_duration("1d").ok(), Some(StdDuration::from_secs(86_400)));
+        for bad in ["", "5", "m", "0m", "5x", "-5m", "99999999999999999999s"] {
+            assert!(parse_duration(bad).is_err(), "{bad}");
+        }
+    }
+
+    #[test]
+    fn times() {
+        let t = parse_time("2026-11-30T02:00:00+01:00").ok();
+        assert_eq!(t.map(|t| t.timestamp()), Some(1_796_000_400));
+        assert!(parse_time("2026-11-30 01:00").is_err());
+    }
+
+    #[test]
+    fn sort_key_names_parse() {
+        for name in SortKey::NAMES {
+            assert!(name.parse::<SortKey>().is_ok(), "{name}");
+        }
+        assert!("drops".parse::<SortKey>().is_err());
+    }
+}

@@ -67,6 +67,7 @@
 #![warn(missing_docs)]
 
 mod data_type;
+mod encoder;
 mod error;
 mod field;
 #[doc(hidden)]
@@ -84,8 +85,11 @@ mod transport;
 
 #[cfg(feature = "capture")]
 pub mod capture;
+#[cfg(feature = "columnar")]
+pub mod columnar;
 
 pub use data_type::{DataType, Semantics};
+pub use encoder::{EncodeError, LengthPrefix, MessageEncoder, RecordEncoder, MAX_MESSAGE_SIZE};
 pub use error::{ListProblem, Malformed, MessageError, SkipReason, TemplateProblem};
 pub use field::{ElementId, FieldSpecifier, ObservationDomainId, TemplateId, REVERSE_PEN, VARIABLE_LENGTH};
 pub use message::{message_length, MessageHeader, HEADER_LEN, VERSION};

@@ -3,10 +3,10 @@
 
 use crate::data_type::DataType;
 use crate::error::ListProblem;
-use crate::field::{FieldSpecifier, VARIABLE_LENGTH};
+use crate::field::FieldSpecifier;
 use crate::ie;
 use crate::plan::{Decode, Plan};
-use crate::record::{decode_value, field_span, read_var_len, record_len, Record, RecordFault, Scope, Value};
+use crate::record::{decode_value, field_span, record_len, Record, RecordFault, Scope, Value};
 
 /// List semantics (RFC 6313 §4.4; IANA "IPFIX Structured Data Types Semantics").
 pub mod semantic {
@@ -42,69 +42,91 @@ fn be16(b: &[u8], at: usize) -> Option<u16> {
 }
 
 /// A basicList (RFC 6313 §4.5.1): elements of one Information Element.
+///
+/// Holds the field's octets; the header is read on access so that a
+/// [`Value`] stays small.
 #[derive(Debug, Clone, Copy)]
 pub struct BasicList<'a> {
-    semantic: u8,
-    element: FieldSpecifier,
-    data_type: DataType,
-    decode: Decode,
-    elements: &'a [u8],
+    raw: &'a [u8],
     scope: Scope<'a>,
 }
 
 impl PartialEq for BasicList<'_> {
     fn eq(&self, other: &Self) -> bool {
-        self.semantic == other.semantic && self.element == other.element && self.elements == other.elements
+        self.raw == other.raw
     }
 }
 
+/// The decoded header of a basicList.
+#[derive(Debug, Clone, Copy)]
+struct BasicListHeader<'a> {
+    element: FieldSpecifier,
+    data_type: DataType,
+    decode: Decode,
+    elements: &'a [u8],
+}
+
+/// Decodes a basicList header: Semantic (1), E bit + Field ID (2), Element
+/// Length (2), Enterprise Number (4) when E = 1 (RFC 6313 §4.5.1).
+fn basic_list_header(b: &[u8]) -> Option<BasicListHeader<'_>> {
+    let raw_id = be16(b, 1)?;
+    let length = be16(b, 3)?;
+    let (element, elements) = if raw_id & 0x8000 != 0 {
+        let pen = u32::from_be_bytes(b.get(5..9)?.try_into().ok()?);
+        (FieldSpecifier::enterprise(pen, raw_id & 0x7fff, length), b.get(9..)?)
+    } else {
+        (FieldSpecifier::iana(raw_id, length), b.get(5..)?)
+    };
+    let data_type = match element.element.enterprise {
+        None => ie::lookup(element.element.id).and_then(|e| e.data_type).unwrap_or(DataType::OctetArray),
+        Some(_) => DataType::OctetArray,
+    };
+    let (decode, _) = Decode::choose(data_type, length);
+    Some(BasicListHeader { element, data_type, decode, elements })
+}
+
 impl<'a> BasicList<'a> {
-    /// Decodes a basicList header: Semantic (1), E bit + Field ID (2),
-    /// Element Length (2), Enterprise Number (4) when E = 1 (RFC 6313 §4.5.1).
     pub(crate) fn parse(b: &'a [u8], scope: Scope<'a>) -> Option<Self> {
-        let semantic = *b.first()?;
-        let raw_id = be16(b, 1)?;
-        let length = be16(b, 3)?;
-        let (element, body) = if raw_id & 0x8000 != 0 {
-            let pen = u32::from_be_bytes(b.get(5..9)?.try_into().ok()?);
-            (FieldSpecifier::enterprise(pen, raw_id & 0x7fff, length), b.get(9..)?)
-        } else {
-            (FieldSpecifier::iana(raw_id, length), b.get(5..)?)
-        };
-        let data_type = match element.element.enterprise {
-            None => ie::lookup(element.element.id).and_then(|e| e.data_type).unwrap_or(DataType::OctetArray),
-            Some(_) => DataType::OctetArray,
-        };
-        let (decode, _) = Decode::choose(data_type, length);
-        Some(Self { semantic, element, data_type, decode, elements: body, scope })
+        basic_list_header(b)?;
+        Some(Self { raw: b, scope })
+    }
+
+    fn header(&self) -> Option<BasicListHeader<'a>> {
+        basic_list_header(self.raw)
     }
 
     /// The list semantic (RFC 6313 §4.4).
-    pub const fn semantic(&self) -> u8 {
-        self.semantic
+    pub fn semantic(&self) -> u8 {
+        self.raw.first().copied().unwrap_or(semantic::UNDEFINED)
     }
 
     /// The Field Specifier of the elements.
-    pub const fn element(&self) -> FieldSpecifier {
-        self.element
+    pub fn element(&self) -> FieldSpecifier {
+        self.header().map_or(FieldSpecifier::iana(0, 0), |h| h.element)
     }
 
     /// The elements' abstract type (octetArray when not registered).
-    pub const fn data_type(&self) -> DataType {
-        self.data_type
+    pub fn data_type(&self) -> DataType {
+        self.header().map_or(DataType::OctetArray, |h| h.data_type)
+    }
+
+    /// The field's octets, list header included.
+    pub const fn bytes(&self) -> &'a [u8] {
+        self.raw
     }
 
     /// Iterates the elements. "There is no element count": the list runs to
     /// the end of the field (RFC 6313 §4.5.1).
     pub fn iter(&self) -> BasicListIter<'a> {
-        BasicListIter { list: *self, pos: 0 }
+        BasicListIter { header: self.header(), scope: self.scope.deeper(), pos: 0 }
     }
 }
 
 /// Iterator over the elements of a [`BasicList`].
 #[derive(Debug, Clone)]
 pub struct BasicListIter<'a> {
-    list: BasicList<'a>,
+    header: Option<BasicListHeader<'a>>,
+    scope: Option<Scope<'a>>,
     pos: usize,
 }
 
@@ -112,17 +134,18 @@ impl<'a> Iterator for BasicListIter<'a> {
     type Item = Value<'a>;
 
     fn next(&mut self) -> Option<Value<'a>> {
-        if self.pos >= self.list.elements.len() {
+        let h = self.header?;
+        if self.pos >= h.elements.len() {
             return None;
         }
-        let (start, end) = field_span(self.list.elements, self.pos, &self.list.element)?;
+        let (start, end) = field_span(h.elements, self.pos, &h.element)?;
         if end == self.pos {
             // A zero-length fixed element would never advance.
             return None;
         }
         self.pos = end;
-        let raw = self.list.elements.get(start..end)?;
-        Some(decode_value(self.list.decode, raw, self.list.scope.deeper()?))
+        let raw = h.elements.get(start..end)?;
+        Some(decode_value(h.decode, raw, self.scope?))
     }
 }
 
@@ -140,53 +163,49 @@ impl<'a> Scope<'a> {
 /// A subTemplateList (RFC 6313 §4.5.2): records of one template.
 #[derive(Debug, Clone, Copy)]
 pub struct SubTemplateList<'a> {
-    semantic: u8,
-    template_id: u16,
-    plan: Option<&'a Plan>,
-    data: &'a [u8],
+    raw: &'a [u8],
     scope: Scope<'a>,
 }
 
 impl PartialEq for SubTemplateList<'_> {
     fn eq(&self, other: &Self) -> bool {
-        self.semantic == other.semantic && self.template_id == other.template_id && self.data == other.data
+        self.raw == other.raw
     }
 }
 
 impl<'a> SubTemplateList<'a> {
-    /// Decodes Semantic (1) and Template ID (2) (RFC 6313 §4.5.2).
+    /// Checks for Semantic (1) and Template ID (2) (RFC 6313 §4.5.2).
     pub(crate) fn parse(b: &'a [u8], scope: Scope<'a>) -> Option<Self> {
-        let semantic = *b.first()?;
-        let template_id = be16(b, 1)?;
-        let data = b.get(3..)?;
-        let plan = scope.templates.get(&template_id).map(|p| &**p);
-        Some(Self { semantic, template_id, plan, data, scope })
+        if b.len() < 3 {
+            return None;
+        }
+        Some(Self { raw: b, scope })
     }
 
     /// The list semantic.
-    pub const fn semantic(&self) -> u8 {
-        self.semantic
+    pub fn semantic(&self) -> u8 {
+        self.raw.first().copied().unwrap_or(semantic::UNDEFINED)
     }
 
     /// The Template ID of the records.
-    pub const fn template_id(&self) -> u16 {
-        self.template_id
+    pub fn template_id(&self) -> u16 {
+        be16(self.raw, 1).unwrap_or(0)
     }
 
     /// The plan of the referenced template, if it is known in the domain
     /// (RFC 6313 §5.2: resolved in the same session and domain).
-    pub const fn plan(&self) -> Option<&'a Plan> {
-        self.plan
+    pub fn plan(&self) -> Option<&'a Plan> {
+        self.scope.templates.get(&self.template_id()).map(|p| &**p)
     }
 
     /// The records' octets.
-    pub const fn bytes(&self) -> &'a [u8] {
-        self.data
+    pub fn bytes(&self) -> &'a [u8] {
+        self.raw.get(3..).unwrap_or_default()
     }
 
     /// Iterates the records; empty when the template is unknown.
     pub fn records(&self) -> Records<'a> {
-        Records { plan: self.plan, data: self.data, pos: 0, scope: self.scope.deeper() }
+        Records { plan: self.plan(), data: self.bytes(), pos: 0, scope: self.scope.deeper() }
     }
 }
 
@@ -219,30 +238,32 @@ impl<'a> Iterator for Records<'a> {
 /// with its own template and records.
 #[derive(Debug, Clone, Copy)]
 pub struct SubTemplateMultiList<'a> {
-    semantic: u8,
-    data: &'a [u8],
+    raw: &'a [u8],
     scope: Scope<'a>,
 }
 
 impl PartialEq for SubTemplateMultiList<'_> {
     fn eq(&self, other: &Self) -> bool {
-        self.semantic == other.semantic && self.data == other.data
+        self.raw == other.raw
     }
 }
 
 impl<'a> SubTemplateMultiList<'a> {
     pub(crate) fn parse(b: &'a [u8], scope: Scope<'a>) -> Option<Self> {
-        Some(Self { semantic: *b.first()?, data: b.get(1..)?, scope })
+        if b.is_empty() {
+            return None;
+        }
+        Some(Self { raw: b, scope })
     }
 
     /// The list semantic.
-    pub const fn semantic(&self) -> u8 {
-        self.semantic
+    pub fn semantic(&self) -> u8 {
+        self.raw.first().copied().unwrap_or(semantic::UNDEFINED)
     }
 
     /// Iterates the entries.
     pub fn entries(&self) -> Entries<'a> {
-        Entries { list: *self, pos: 0 }
+        Entries { data: self.raw.get(1..).unwrap_or_default(), scope: self.scope, pos: 0 }
     }
 }
 
@@ -251,7 +272,9 @@ impl<'a> SubTemplateMultiList<'a> {
 #[derive(Debug, Clone, Copy)]
 pub struct MultiListEntry<'a> {
     template_id: u16,
-    inner: SubTemplateList<'a>,
+    plan: Option<&'a Plan>,
+    data: &'a [u8],
+    scope: Scope<'a>,
 }
 
 impl<'a> MultiListEntry<'a> {
@@ -262,19 +285,20 @@ impl<'a> MultiListEntry<'a> {
 
     /// The plan of the template, if known.
     pub const fn plan(&self) -> Option<&'a Plan> {
-        self.inner.plan
+        self.plan
     }
 
     /// Iterates the records of this entry.
     pub fn records(&self) -> Records<'a> {
-        self.inner.records()
+        Records { plan: self.plan, data: self.data, pos: 0, scope: self.scope.deeper() }
     }
 }
 
 /// Iterator over [`MultiListEntry`] values.
 #[derive(Debug, Clone)]
 pub struct Entries<'a> {
-    list: SubTemplateMultiList<'a>,
+    data: &'a [u8],
+    scope: Scope<'a>,
     pos: usize,
 }
 
@@ -282,17 +306,15 @@ impl<'a> Iterator for Entries<'a> {
     type Item = MultiListEntry<'a>;
 
     fn next(&mut self) -> Option<MultiListEntry<'a>> {
-        let data = self.list.data;
-        let template_id = be16(data, self.pos)?;
-        let len = usize::from(be16(data, self.pos + 2)?);
+        let template_id = be16(self.data, self.pos)?;
+        let len = usize::from(be16(self.data, self.pos + 2)?);
         if len < 4 {
             return None;
         }
-        let records = data.get(self.pos + 4..self.pos + len)?;
+        let data = self.data.get(self.pos + 4..self.pos + len)?;
         self.pos += len;
-        let plan = self.list.scope.templates.get(&template_id).map(|p| &**p);
-        let inner = SubTemplateList { semantic: self.list.semantic, template_id, plan, data: records, scope: self.list.scope };
-        Some(MultiListEntry { template_id, inner })
+        let plan = self.scope.templates.get(&template_id).map(|p| &**p);
+        Some(MultiListEntry { template_id, plan, data, scope: self.scope })
     }
 }
 
@@ -304,14 +326,14 @@ pub(crate) fn validate(decode: Decode, b: &[u8], scope: Scope<'_>) -> Result<(),
         _ => return Ok(()),
     }
     let Some(inner) = scope.deeper() else {
-        return Err((0, ListProblem::TooDeep { limit: scope.max_depth }));
+        return Err((0, ListProblem::TooDeep { limit: usize::from(scope.max_depth) }));
     };
     match decode {
         Decode::BasicList => {
-            let list = BasicList::parse(b, scope).ok_or((0, ListProblem::ShortHeader { needed: 5, available: b.len() }))?;
-            if list.element.element.enterprise.is_some() && b.len() < 9 {
-                return Err((0, ListProblem::ShortHeader { needed: 9, available: b.len() }));
-            }
+            let list = basic_list_header(b).ok_or_else(|| {
+                let needed = if be16(b, 1).is_some_and(|id| id & 0x8000 != 0) { 9 } else { 5 };
+                (0, ListProblem::ShortHeader { needed, available: b.len() })
+            })?;
             let header = b.len() - list.elements.len();
             let mut pos = 0;
             while pos < list.elements.len() {
@@ -329,7 +351,7 @@ pub(crate) fn validate(decode: Decode, b: &[u8], scope: Scope<'_>) -> Result<(),
         }
         Decode::SubTemplateList => {
             let list = SubTemplateList::parse(b, scope).ok_or((0, ListProblem::ShortHeader { needed: 3, available: b.len() }))?;
-            validate_records(list.plan, list.data, inner).map_err(|(o, p)| (3 + o, p))
+            validate_records(list.plan(), list.bytes(), inner).map_err(|(o, p)| (3 + o, p))
         }
         _ => {
             let mut pos = 1;
@@ -366,20 +388,4 @@ fn validate_records(plan: Option<&Plan>, data: &[u8], scope: Scope<'_>) -> Resul
         }
     }
     Ok(())
-}
-
-/// Encodes a variable-length prefix (RFC 7011 §7), choosing the 3-octet
-/// form when `three_octet` is set or the length needs it.
-pub fn encode_var_len(out: &mut Vec<u8>, len: usize, three_octet: bool) {
-    if len < 255 && !three_octet {
-        out.push(len as u8);
-    } else {
-        out.push(255);
-        out.extend_from_slice(&(len.min(usize::from(VARIABLE_LENGTH)) as u16).to_be_bytes());
-    }
-}
-
-#[allow(dead_code)]
-pub(crate) fn var_len_of(data: &[u8]) -> Option<(usize, usize)> {
-    read_var_len(data, 0)
 }

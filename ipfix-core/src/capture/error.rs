@@ -10,13 +10,13 @@ use std::sync::Arc;
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
 #[non_exhaustive]
 pub enum Compression {
-    /// gzip: starts `1f 8b` (RFC 1952 §2.3.1; RFC 5655 §10.2).
+    /// gzip: starts `1f 8b` (RFC 5655 §10.2).
     Gzip,
     /// bzip2: starts `BZh` (RFC 5655 §10.2).
     Bzip2,
     /// xz: starts `fd 37 7a 58 5a 00` (from memory, unconfirmed).
     Xz,
-    /// Zstandard: starts `28 b5 2f fd` (RFC 8878 §3.1.1).
+    /// Zstandard: starts `28 b5 2f fd` (from memory, unconfirmed).
     Zstd,
 }
 

@@ -35,9 +35,10 @@ pub(crate) struct Datagram<'a> {
     pub(crate) payload: Cow<'a, [u8]>,
 }
 
-/// Identifies the datagram a fragment belongs to: RFC 791 §3.2 (source,
-/// destination, protocol, identification) and RFC 8200 §4.5 (source,
-/// destination, identification), plus the capture interface.
+/// Identifies the datagram a fragment belongs to: source, destination,
+/// protocol and identification for IPv4 (RFC 791 §3.2; from memory,
+/// unconfirmed), source, destination and identification for IPv6
+/// (RFC 8200 §4.5), plus the capture interface.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
 pub(crate) struct FragKey {
     interface: u32,
@@ -291,8 +292,8 @@ mod tests {
 
     #[test]
     fn ipv4_fragments_out_of_order() {
-        // RFC 791 §3.2: fragments may arrive in any order; offsets in
-        // 8-octet units rebuild the datagram.
+        // RFC 791 §3.2 (from memory, unconfirmed): fragments may arrive in
+        // any order; offsets in 8-octet units rebuild the datagram.
         let (s, d) = (sa("192.0.2.10:50000"), sa("198.51.100.20:4739"));
         let msg = ipfix_message(7, 100);
         let frames = ipv4_udp_fragments(s, d, 0x1234, &msg, 32);

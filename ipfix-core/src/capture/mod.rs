@@ -107,7 +107,7 @@ pub const IPFIX_PORT: u16 = 4739;
 pub enum PortFilter {
     /// Any port. A UDP datagram is IPFIX if its payload is exactly one
     /// message (version 10 and header Length equal to the payload length,
-    /// RFC 7011 §3.1, §10.3.3); a TCP stream if it starts with a plausible
+    /// RFC 7011 §3.1, §10.3); a TCP stream if it starts with a plausible
     /// Message Header (or, seen without its SYN, contains confirmed ones).
     #[default]
     Any,

@@ -98,7 +98,7 @@ impl PacketDecoder {
                 return stats.skip(SkipReason::PortFiltered)
             }
             PortFilter::Only(_) => true,
-            // Any port: RFC 7011 §10.3.3 puts exactly one message in each
+            // Any port: RFC 7011 §10.3 carries exactly one message per
             // datagram, so version 10 and a Length equal to the payload
             // length (§3.1) identify IPFIX.
             PortFilter::Any => {

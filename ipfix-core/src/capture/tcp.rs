@@ -3,7 +3,8 @@
 //! Each direction of a connection is its own stream, keyed by (source,
 //! destination) socket address; the side that sends IPFIX bytes is the
 //! Exporter (RFC 7011 §2). Bytes are put in sequence order (RFC 9293 §3.4:
-//! sequence numbers count octets, the SYN occupies one), retransmitted and
+//! sequence numbers count octets, the SYN occupies one; from memory,
+//! unconfirmed), retransmitted and
 //! overlapping bytes are counted and dropped, out-of-order segments wait in
 //! a bounded buffer, and messages are cut by the header Length only
 //! (RFC 7011 §10.4.3). A gap that cannot be filled is jumped over; the
@@ -107,7 +108,8 @@ impl Stream {
     }
 
     /// Stream position of sequence number `seq`, unwrapped near `next`
-    /// (RFC 9293 §3.4: sequence arithmetic is modulo 2^32).
+    /// (sequence arithmetic is modulo 2^32, RFC 9293 §3.4; from memory,
+    /// unconfirmed).
     fn position(&self, seq: u32) -> i64 {
         let rel = seq.wrapping_sub(self.base);
         let diff = rel.wrapping_sub(self.next as u32) as i32;
@@ -539,7 +541,7 @@ mod tests {
         // RFC 7011 §10.4.3: messages framed by Length across segments.
         let msgs = vec![ipfix_message(1, 100), ipfix_message(2, 60), ipfix_message(3, 16)];
         let s = stream_of(&msgs);
-        let isn = 0xffff_ff00; // wraps during the stream (RFC 9293 §3.4)
+        let isn = 0xffff_ff00; // wraps during the stream (modulo 2^32)
         let mut h = Harness::new(1 << 20);
         h.seg(isn, "S", &[], true);
         let base = isn.wrapping_add(1);

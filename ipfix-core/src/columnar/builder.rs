@@ -1,0 +1,874 @@
+//! Typed column builders and the table builder that appends Data Sets.
+
+use std::any::Any;
+use std::collections::HashMap;
+use std::fmt::Write as _;
+use std::net::Ipv6Addr;
+use std::sync::Arc;
+
+use arrow::array::{
+    ArrayBuilder, ArrayRef, BinaryBuilder, BooleanBuilder, FixedSizeBinaryBuilder, Float32Builder, Float64Builder,
+    Int16Builder, Int32Builder, Int64Builder, Int8Builder, ListBuilder, RecordBatch, StringBuilder, StructBuilder,
+    TimestampMicrosecondBuilder, TimestampMillisecondBuilder, TimestampNanosecondBuilder, TimestampSecondBuilder,
+    UInt16Builder, UInt32Builder, UInt64Builder, UInt8Builder,
+};
+use arrow::datatypes::{DataType as ArrowType, Field, TimeUnit};
+
+use super::derive::{be_uint, DerivedPlan, DerivedRow, SetContext};
+use super::enrich::Enrichment;
+use super::schema::{
+    column_name, element_type, name_value_fields, record_struct_fields, write_field_name, ColumnRole, TableKind,
+    TableSchema,
+};
+use super::text::{write_ipv4, write_mac, write_value_text};
+use super::{ColumnarError, ColumnarStats};
+use crate::plan::{Decode, Plan};
+use crate::record::{field_span, DateTime, Record, Value};
+use crate::session::DataSet;
+use crate::structured::Records;
+
+/// A builder for one scalar Arrow type. Also the item builder of list
+/// columns, hence the [`ArrayBuilder`] impl.
+#[derive(Debug)]
+pub(crate) enum Scalar {
+    U8(UInt8Builder),
+    U16(UInt16Builder),
+    U32(UInt32Builder),
+    U64(UInt64Builder),
+    I8(Int8Builder),
+    I16(Int16Builder),
+    I32(Int32Builder),
+    I64(Int64Builder),
+    F32(Float32Builder),
+    F64(Float64Builder),
+    Bool(BooleanBuilder),
+    Utf8(StringBuilder),
+    Binary(BinaryBuilder),
+    Fsb(FixedSizeBinaryBuilder),
+    TsS(TimestampSecondBuilder),
+    TsMs(TimestampMillisecondBuilder),
+    TsUs(TimestampMicrosecondBuilder),
+    TsNs(TimestampNanosecondBuilder),
+}
+
+/// Sign-extends a big-endian two's complement value of 1..=8 octets
+/// (RFC 7011 §6.2: signedness is preserved in reduced-size encoding).
+fn be_int(b: &[u8]) -> Option<i64> {
+    if b.is_empty() || b.len() > 8 {
+        return None;
+    }
+    let shift = 64 - 8 * b.len() as u32;
+    Some(((be_uint(b) << shift) as i64) >> shift)
+}
+
+/// Microseconds since the UNIX epoch, rounded down.
+fn unix_micros(t: DateTime) -> Option<i64> {
+    t.secs.checked_mul(1_000_000)?.checked_add(i64::from(t.nanos / 1000))
+}
+
+/// Milliseconds since the UNIX epoch, rounded down.
+fn unix_millis(t: DateTime) -> Option<i64> {
+    t.secs.checked_mul(1000)?.checked_add(i64::from(t.nanos / 1_000_000))
+}
+
+fn ntp(raw: &[u8], micro: bool) -> Option<DateTime> {
+    let (s, f) = raw.split_first_chunk::<4>()?;
+    let f: &[u8; 4] = f.try_into().ok()?;
+    Some(DateTime::from_ntp(u32::from_be_bytes(*s), u32::from_be_bytes(*f), micro))
+}
+
+macro_rules! append_or_null {
+    ($b:expr, $v:expr, $stats:expr, $counter:ident) => {
+        match $v {
+            Some(v) => $b.append_value(v),
+            None => {
+                $b.append_null();
+                $stats.$counter += 1;
+            }
+        }
+    };
+}
+
+impl Scalar {
+    fn new(t: &ArrowType, capacity: usize) -> Option<Self> {
+        let tz = "UTC";
+        Some(match t {
+            ArrowType::UInt8 => Self::U8(UInt8Builder::with_capacity(capacity)),
+            ArrowType::UInt16 => Self::U16(UInt16Builder::with_capacity(capacity)),
+            ArrowType::UInt32 => Self::U32(UInt32Builder::with_capacity(capacity)),
+            ArrowType::UInt64 => Self::U64(UInt64Builder::with_capacity(capacity)),
+            ArrowType::Int8 => Self::I8(Int8Builder::with_capacity(capacity)),
+            ArrowType::Int16 => Self::I16(Int16Builder::with_capacity(capacity)),
+            ArrowType::Int32 => Self::I32(Int32Builder::with_capacity(capacity)),
+            ArrowType::Int64 => Self::I64(Int64Builder::with_capacity(capacity)),
+            ArrowType::Float32 => Self::F32(Float32Builder::with_capacity(capacity)),
+            ArrowType::Float64 => Self::F64(Float64Builder::with_capacity(capacity)),
+            ArrowType::Boolean => Self::Bool(BooleanBuilder::with_capacity(capacity)),
+            ArrowType::Utf8 => Self::Utf8(StringBuilder::with_capacity(capacity, capacity * 8)),
+            ArrowType::Binary => Self::Binary(BinaryBuilder::with_capacity(capacity, capacity * 4)),
+            ArrowType::FixedSizeBinary(w) => Self::Fsb(FixedSizeBinaryBuilder::with_capacity(capacity, *w)),
+            ArrowType::Timestamp(TimeUnit::Second, _) => {
+                Self::TsS(TimestampSecondBuilder::with_capacity(capacity).with_timezone(tz))
+            }
+            ArrowType::Timestamp(TimeUnit::Millisecond, _) => {
+                Self::TsMs(TimestampMillisecondBuilder::with_capacity(capacity).with_timezone(tz))
+            }
+            ArrowType::Timestamp(TimeUnit::Microsecond, _) => {
+                Self::TsUs(TimestampMicrosecondBuilder::with_capacity(capacity).with_timezone(tz))
+            }
+            ArrowType::Timestamp(TimeUnit::Nanosecond, _) => {
+                Self::TsNs(TimestampNanosecondBuilder::with_capacity(capacity).with_timezone(tz))
+            }
+            _ => return None,
+        })
+    }
+
+    fn builder(&self) -> &dyn ArrayBuilder {
+        match self {
+            Self::U8(b) => b,
+            Self::U16(b) => b,
+            Self::U32(b) => b,
+            Self::U64(b) => b,
+            Self::I8(b) => b,
+            Self::I16(b) => b,
+            Self::I32(b) => b,
+            Self::I64(b) => b,
+            Self::F32(b) => b,
+            Self::F64(b) => b,
+            Self::Bool(b) => b,
+            Self::Utf8(b) => b,
+            Self::Binary(b) => b,
+            Self::Fsb(b) => b,
+            Self::TsS(b) => b,
+            Self::TsMs(b) => b,
+            Self::TsUs(b) => b,
+            Self::TsNs(b) => b,
+        }
+    }
+
+    fn builder_mut(&mut self) -> &mut dyn ArrayBuilder {
+        match self {
+            Self::U8(b) => b,
+            Self::U16(b) => b,
+            Self::U32(b) => b,
+            Self::U64(b) => b,
+            Self::I8(b) => b,
+            Self::I16(b) => b,
+            Self::I32(b) => b,
+            Self::I64(b) => b,
+            Self::F32(b) => b,
+            Self::F64(b) => b,
+            Self::Bool(b) => b,
+            Self::Utf8(b) => b,
+            Self::Binary(b) => b,
+            Self::Fsb(b) => b,
+            Self::TsS(b) => b,
+            Self::TsMs(b) => b,
+            Self::TsUs(b) => b,
+            Self::TsNs(b) => b,
+        }
+    }
+
+    pub(crate) fn append_nulls(&mut self, n: usize) {
+        match self {
+            Self::U8(b) => b.append_nulls(n),
+            Self::U16(b) => b.append_nulls(n),
+            Self::U32(b) => b.append_nulls(n),
+            Self::U64(b) => b.append_nulls(n),
+            Self::I8(b) => b.append_nulls(n),
+            Self::I16(b) => b.append_nulls(n),
+            Self::I32(b) => b.append_nulls(n),
+            Self::I64(b) => b.append_nulls(n),
+            Self::F32(b) => b.append_nulls(n),
+            Self::F64(b) => b.append_nulls(n),
+            Self::Bool(b) => b.append_nulls(n),
+            Self::Utf8(b) => b.append_nulls(n),
+            Self::Binary(b) => b.append_nulls(n),
+            Self::Fsb(b) => b.append_nulls(n),
+            Self::TsS(b) => b.append_nulls(n),
+            Self::TsMs(b) => b.append_nulls(n),
+            Self::TsUs(b) => b.append_nulls(n),
+            Self::TsNs(b) => b.append_nulls(n),
+        }
+    }
+
+    /// Appends a field's octets decoded by `decode` (the hot path: no
+    /// [`Value`], no allocation). The plan guarantees the octets fit the
+    /// column's type; anything else is written as null and counted.
+    fn append_raw(&mut self, decode: Decode, raw: &[u8], stats: &mut ColumnarStats) {
+        match self {
+            Self::U8(b) => append_or_null!(b, u8::try_from(be_uint(raw)).ok(), stats, values_null_invalid),
+            Self::U16(b) => append_or_null!(b, u16::try_from(be_uint(raw)).ok(), stats, values_null_invalid),
+            Self::U32(b) => append_or_null!(b, u32::try_from(be_uint(raw)).ok(), stats, values_null_invalid),
+            Self::U64(b) => append_or_null!(b, (raw.len() <= 8).then(|| be_uint(raw)), stats, values_null_invalid),
+            Self::I8(b) => append_or_null!(b, be_int(raw).and_then(|v| i8::try_from(v).ok()), stats, values_null_invalid),
+            Self::I16(b) => append_or_null!(b, be_int(raw).and_then(|v| i16::try_from(v).ok()), stats, values_null_invalid),
+            Self::I32(b) => append_or_null!(b, be_int(raw).and_then(|v| i32::try_from(v).ok()), stats, values_null_invalid),
+            Self::I64(b) => append_or_null!(b, be_int(raw), stats, values_null_invalid),
+            Self::F32(b) => {
+                let v = raw.first_chunk::<4>().filter(|_| raw.len() == 4).map(|a| f32::from_be_bytes(*a));
+                append_or_null!(b, v, stats, values_null_invalid)
+            }
+            Self::F64(b) => {
+                // RFC 7011 §6.2: float64 may be sent as float32.
+                let v = match raw.len() {
+                    8 => raw.first_chunk::<8>().map(|a| f64::from_be_bytes(*a)),
+                    4 => raw.first_chunk::<4>().map(|a| f64::from(f32::from_be_bytes(*a))),
+                    _ => None,
+                };
+                append_or_null!(b, v, stats, values_null_invalid)
+            }
+            Self::Bool(b) => {
+                // RFC 7011 §6.1.5: 1 = true, 2 = false, anything else undefined.
+                let v = match raw {
+                    [1] => Some(true),
+                    [2] => Some(false),
+                    _ => None,
+                };
+                append_or_null!(b, v, stats, values_null_invalid)
+            }
+            Self::Utf8(b) => match decode {
+                Decode::String => match std::str::from_utf8(raw) {
+                    Ok(s) => b.append_value(s),
+                    Err(_) => {
+                        // RFC 7011 §6.1.6: ill-formed UTF-8 "SHOULD" be detected and ignored.
+                        b.append_null();
+                        stats.values_null_invalid_utf8 += 1;
+                    }
+                },
+                Decode::MacAddress => match raw.first_chunk::<6>().filter(|_| raw.len() == 6) {
+                    Some(m) => {
+                        let _ = write_mac(m, b);
+                        b.append_value("");
+                    }
+                    None => null_invalid(b, stats),
+                },
+                Decode::Ipv4Address => match raw.first_chunk::<4>().filter(|_| raw.len() == 4) {
+                    Some(a) => {
+                        let _ = write_ipv4(*a, b);
+                        b.append_value("");
+                    }
+                    None => null_invalid(b, stats),
+                },
+                Decode::Ipv6Address => match raw.first_chunk::<16>().filter(|_| raw.len() == 16) {
+                    Some(a) => {
+                        // std's Display follows RFC 5952 (lower case, longest zero run as ::).
+                        let _ = write!(b, "{}", Ipv6Addr::from(*a));
+                        b.append_value("");
+                    }
+                    None => null_invalid(b, stats),
+                },
+                _ => null_invalid(b, stats),
+            },
+            Self::Binary(b) => b.append_value(raw),
+            Self::Fsb(b) => {
+                // unsigned256 sent reduced (RFC 7011 §6.2 by analogy): left-pad to 32.
+                let mut wide = [0u8; 32];
+                let width: usize = 32; // FixedSizeBinary(32): the only fixed-width type used
+                match wide.get_mut(width.saturating_sub(raw.len())..width) {
+                    Some(dst) if dst.len() == raw.len() => {
+                        dst.copy_from_slice(raw);
+                        if b.append_value(wide.get(..width).unwrap_or_default()).is_err() {
+                            b.append_null();
+                            stats.values_null_invalid += 1;
+                        }
+                    }
+                    _ => {
+                        b.append_null();
+                        stats.values_null_invalid += 1;
+                    }
+                }
+            }
+            Self::TsS(b) => {
+                let v = raw.first_chunk::<4>().filter(|_| raw.len() == 4).map(|a| i64::from(u32::from_be_bytes(*a)));
+                append_or_null!(b, v, stats, values_null_invalid)
+            }
+            Self::TsMs(b) => {
+                let v = raw.first_chunk::<8>().filter(|_| raw.len() == 8).map(|a| i64::try_from(u64::from_be_bytes(*a)));
+                match v {
+                    Some(Ok(ms)) => b.append_value(ms),
+                    Some(Err(_)) => {
+                        b.append_null();
+                        stats.values_null_out_of_range += 1;
+                    }
+                    None => {
+                        b.append_null();
+                        stats.values_null_invalid += 1;
+                    }
+                }
+            }
+            Self::TsUs(b) => match ntp(raw, decode == Decode::DateTimeMicroseconds) {
+                Some(t) => append_or_null!(b, unix_micros(t), stats, values_null_out_of_range),
+                None => {
+                    b.append_null();
+                    stats.values_null_invalid += 1;
+                }
+            },
+            Self::TsNs(b) => match ntp(raw, decode == Decode::DateTimeMicroseconds) {
+                Some(t) => append_or_null!(b, t.unix_nanos(), stats, values_null_out_of_range),
+                None => {
+                    b.append_null();
+                    stats.values_null_invalid += 1;
+                }
+            },
+        }
+    }
+
+    /// Appends a decoded value: list items, whose element may be of any
+    /// type. A value of another type than the column's is a null item,
+    /// counted in `list_elements_null`; generic (Utf8) items take the text
+    /// form of any value.
+    fn append_value(&mut self, v: &Value<'_>, stats: &mut ColumnarStats) {
+        let ok = match (&mut *self, v) {
+            (Self::U8(b), Value::Unsigned(x)) => u8::try_from(*x).map(|x| b.append_value(x)).is_ok(),
+            (Self::U16(b), Value::Unsigned(x)) => u16::try_from(*x).map(|x| b.append_value(x)).is_ok(),
+            (Self::U32(b), Value::Unsigned(x)) => u32::try_from(*x).map(|x| b.append_value(x)).is_ok(),
+            (Self::U64(b), Value::Unsigned(x)) => {
+                b.append_value(*x);
+                true
+            }
+            (Self::I8(b), Value::Signed(x)) => i8::try_from(*x).map(|x| b.append_value(x)).is_ok(),
+            (Self::I16(b), Value::Signed(x)) => i16::try_from(*x).map(|x| b.append_value(x)).is_ok(),
+            (Self::I32(b), Value::Signed(x)) => i32::try_from(*x).map(|x| b.append_value(x)).is_ok(),
+            (Self::I64(b), Value::Signed(x)) => {
+                b.append_value(*x);
+                true
+            }
+            (Self::F32(b), Value::Float(x)) => {
+                b.append_value(*x as f32);
+                true
+            }
+            (Self::F64(b), Value::Float(x)) => {
+                b.append_value(*x);
+                true
+            }
+            (Self::Bool(b), Value::Bool(x)) => {
+                b.append_value(*x);
+                true
+            }
+            (Self::Utf8(_), Value::Invalid(_)) => false,
+            (Self::Utf8(b), v) => {
+                let _ = write_value_text(v, b);
+                b.append_value("");
+                true
+            }
+            (Self::Binary(b), Value::Octets(x)) => {
+                b.append_value(x);
+                true
+            }
+            (Self::Fsb(_), Value::Unsigned256(x)) => {
+                self.append_raw(Decode::Unsigned256, x, stats);
+                true
+            }
+            (Self::TsS(b), Value::DateTime(t)) => {
+                b.append_value(t.secs);
+                true
+            }
+            (Self::TsMs(b), Value::DateTime(t)) => unix_millis(*t).map(|x| b.append_value(x)).is_some(),
+            (Self::TsUs(b), Value::DateTime(t)) => unix_micros(*t).map(|x| b.append_value(x)).is_some(),
+            (Self::TsNs(b), Value::DateTime(t)) => t.unix_nanos().map(|x| b.append_value(x)).is_some(),
+            _ => false,
+        };
+        if !ok {
+            self.append_nulls(1);
+            stats.list_elements_null += 1;
+        }
+    }
+}
+
+fn null_invalid(b: &mut StringBuilder, stats: &mut ColumnarStats) {
+    b.append_null();
+    stats.values_null_invalid += 1;
+}
+
+impl ArrayBuilder for Scalar {
+    fn len(&self) -> usize {
+        self.builder().len()
+    }
+    fn finish(&mut self) -> ArrayRef {
+        self.builder_mut().finish()
+    }
+    fn finish_cloned(&self) -> ArrayRef {
+        self.builder().finish_cloned()
+    }
+    fn as_any(&self) -> &dyn Any {
+        self
+    }
+    fn as_any_mut(&mut self) -> &mut dyn Any {
+        self
+    }
+    fn into_box_any(self: Box<Self>) -> Box<dyn Any> {
+        self
+    }
+}
+
+/// One column's builder.
+#[derive(Debug)]
+enum Column {
+    Scalar(Scalar),
+    /// basicList, mplsLabelStack, scopeFields.
+    List(ListBuilder<Scalar>),
+    /// subTemplateList / subTemplateMultiList.
+    Records(ListBuilder<StructBuilder>),
+}
+
+impl Column {
+    fn new(t: &ArrowType, capacity: usize) -> Option<Self> {
+        match t {
+            ArrowType::List(item) => match item.data_type() {
+                ArrowType::Struct(_) => {
+                    let inner = ListBuilder::new(StructBuilder::from_fields(name_value_fields(), 0))
+                        .with_field(Field::new_list_field(ArrowType::Struct(name_value_fields()), true));
+                    let builders: Vec<Box<dyn ArrayBuilder>> =
+                        vec![Box::new(UInt8Builder::new()), Box::new(UInt16Builder::new()), Box::new(inner)];
+                    let records = StructBuilder::new(record_struct_fields(), builders);
+                    Some(Self::Records(ListBuilder::with_capacity(records, capacity).with_field(item.clone())))
+                }
+                t => Some(Self::List(ListBuilder::with_capacity(Scalar::new(t, capacity)?, capacity).with_field(item.clone()))),
+            },
+            t => Scalar::new(t, capacity).map(Self::Scalar),
+        }
+    }
+
+    fn append_nulls(&mut self, n: usize) {
+        match self {
+            Self::Scalar(s) => s.append_nulls(n),
+            Self::List(l) => l.append_nulls(n),
+            Self::Records(l) => l.append_nulls(n),
+        }
+    }
+
+    fn len(&self) -> usize {
+        match self {
+            Self::Scalar(s) => s.len(),
+            Self::List(l) => l.len(),
+            Self::Records(l) => l.len(),
+        }
+    }
+
+    fn finish(&mut self) -> ArrayRef {
+        match self {
+            Self::Scalar(s) => s.finish(),
+            Self::List(l) => Arc::new(l.finish()),
+            Self::Records(l) => Arc::new(l.finish()),
+        }
+    }
+
+    /// Appends a list-typed field's value.
+    fn append_list(&mut self, v: &Value<'_>, stats: &mut ColumnarStats) {
+        match (self, v) {
+            (Self::List(l), Value::BasicList(list)) => {
+                for item in list.iter() {
+                    l.values().append_value(&item, stats);
+                }
+                l.append(true);
+            }
+            (Self::Records(l), Value::SubTemplateList(list)) => {
+                let known = list.plan().is_some();
+                append_records(l.values(), list.semantic(), list.template_id(), known, list.records(), stats);
+                l.append(true);
+            }
+            (Self::Records(l), Value::SubTemplateMultiList(list)) => {
+                for e in list.entries() {
+                    append_records(l.values(), list.semantic(), e.template_id(), e.plan().is_some(), e.records(), stats);
+                }
+                l.append(true);
+            }
+            (col, _) => {
+                col.append_nulls(1);
+                stats.values_null_invalid += 1;
+            }
+        }
+    }
+}
+
+/// Appends one struct item per record (see
+/// [`record_struct_type`](super::record_struct_type)).
+fn append_records(
+    sb: &mut StructBuilder,
+    semantic: u8,
+    template_id: u16,
+    known: bool,
+    records: Records<'_>,
+    stats: &mut ColumnarStats,
+) {
+    let head = |sb: &mut StructBuilder| {
+        if let Some(b) = sb.field_builder::<UInt8Builder>(0) {
+            b.append_value(semantic);
+        }
+        if let Some(b) = sb.field_builder::<UInt16Builder>(1) {
+            b.append_value(template_id);
+        }
+    };
+    if !known {
+        // RFC 6313 §5.2: the template must come from the same session and
+        // domain; without it the records cannot be read.
+        head(sb);
+        if let Some(f) = sb.field_builder::<ListBuilder<StructBuilder>>(2) {
+            f.append_null();
+        }
+        sb.append(true);
+        stats.list_records_unknown_template += 1;
+        return;
+    }
+    let mut name = String::new();
+    for record in records {
+        head(sb);
+        if let Some(f) = sb.field_builder::<ListBuilder<StructBuilder>>(2) {
+            let nv = f.values();
+            for field in record.fields() {
+                name.clear();
+                write_field_name(field.spec, false, &mut name);
+                if let Some(n) = nv.field_builder::<StringBuilder>(0) {
+                    n.append_value(&name);
+                }
+                if let Some(v) = nv.field_builder::<StringBuilder>(1) {
+                    let _ = write_value_text(&field.value, v);
+                    v.append_value("");
+                }
+                nv.append(true);
+            }
+            f.append(true);
+        }
+        sb.append(true);
+    }
+}
+
+/// Where a plan field's values go.
+#[derive(Debug, Clone, Copy)]
+struct Slot {
+    /// Column index, or [`UNPLACED`].
+    column: usize,
+    decode: Decode,
+}
+
+const UNPLACED: usize = usize::MAX;
+
+/// A plan mapped onto the schema once, reused for every set of the plan.
+#[derive(Debug)]
+struct PlanMap {
+    slots: Vec<Slot>,
+    /// Element columns this plan does not feed: null in bulk per set.
+    absent: Vec<usize>,
+    derived: DerivedPlan,
+    /// Options table: the scope column names of this plan.
+    scope_names: Vec<String>,
+    has_lists: bool,
+}
+
+/// Column positions that do not depend on the plan.
+#[derive(Debug, Clone, Copy)]
+struct Fixed {
+    exporter: usize,
+    domain: usize,
+    template: usize,
+    export_time: usize,
+    scope_fields: Option<usize>,
+    derived: Option<usize>,
+}
+
+/// Appends Data Sets to Arrow column builders and finishes them into
+/// [`RecordBatch`]es of a [`TableSchema`].
+///
+/// Each plan is mapped to its columns once (cached by `Arc<Plan>`
+/// identity); the per-record loop then walks the fields and appends to typed
+/// builders without name lookups or per-value allocation, and columns the
+/// template lacks get their nulls in bulk per set.
+#[derive(Debug)]
+pub struct TableBuilder {
+    schema: Arc<TableSchema>,
+    columns: Vec<Column>,
+    fixed: Fixed,
+    plans: HashMap<usize, (Arc<Plan>, Arc<PlanMap>)>,
+    rows: usize,
+    stats: ColumnarStats,
+    spans: Vec<Option<(usize, usize)>>,
+    labels: Vec<u32>,
+    text: String,
+}
+
+/// Most plans kept in the mapping cache; past it the cache is cleared
+/// (plans are re-mapped on their next set).
+const MAX_CACHED_PLANS: usize = 4096;
+
+impl TableBuilder {
+    /// A builder for `schema`, reserving room for `capacity` rows (use the
+    /// row-group size).
+    pub fn new(schema: Arc<TableSchema>, capacity: usize) -> Self {
+        let columns: Vec<Column> = schema
+            .columns()
+            .iter()
+            .map(|c| {
+                // Every schema type has a builder (tests check each); Binary
+                // is only a defensive fallback.
+                Column::new(&c.data_type, capacity)
+                    .unwrap_or_else(|| Column::Scalar(Scalar::Binary(BinaryBuilder::with_capacity(capacity, 0))))
+            })
+            .collect();
+        let pos = |name: &str| schema.column_index(name).unwrap_or(UNPLACED);
+        let fixed = Fixed {
+            exporter: pos("exporter"),
+            domain: pos("observationDomainId"),
+            template: pos("templateId"),
+            export_time: pos("exportTime"),
+            scope_fields: schema.column_index(super::schema::SCOPE_FIELDS),
+            derived: schema
+                .columns()
+                .iter()
+                .position(|c| matches!(c.role, ColumnRole::Derived(_))),
+        };
+        Self {
+            schema,
+            columns,
+            fixed,
+            plans: HashMap::new(),
+            rows: 0,
+            stats: ColumnarStats::default(),
+            spans: Vec::new(),
+            labels: Vec::new(),
+            text: String::new(),
+        }
+    }
+
+    /// The schema.
+    pub fn schema(&self) -> &Arc<TableSchema> {
+        &self.schema
+    }
+
+    /// Rows appended since the last [`finish`](Self::finish).
+    pub const fn len(&self) -> usize {
+        self.rows
+    }
+
+    /// True when no row is waiting.
+    pub const fn is_empty(&self) -> bool {
+        self.rows == 0
+    }
+
+    /// Counters since the builder was made.
+    pub const fn stats(&self) -> &ColumnarStats {
+        &self.stats
+    }
+
+    fn map_plan(&self, plan: &Plan) -> PlanMap {
+        let mut used = vec![false; self.columns.len()];
+        let mut slots = Vec::with_capacity(plan.fields().len());
+        let mut scope_names = Vec::new();
+        for field in plan.fields() {
+            let name = column_name(field);
+            let column = match self.schema.column_index(&name) {
+                Some(c)
+                    if !used.get(c).copied().unwrap_or(true)
+                        && self.schema.columns().get(c).is_some_and(|spec| {
+                            matches!(spec.role, ColumnRole::Element { .. }) && spec.data_type == element_type(field)
+                        }) =>
+                {
+                    if let Some(u) = used.get_mut(c) {
+                        *u = true;
+                    }
+                    c
+                }
+                _ => UNPLACED,
+            };
+            if field.is_scope {
+                scope_names.push(name);
+            }
+            slots.push(Slot { column, decode: field.decode });
+        }
+        let absent = self
+            .schema
+            .columns()
+            .iter()
+            .enumerate()
+            .filter(|(i, c)| matches!(c.role, ColumnRole::Element { .. }) && !used.get(*i).copied().unwrap_or(false))
+            .map(|(i, _)| i)
+            .collect();
+        let derived = match self.schema.kind() {
+            TableKind::Flows => DerivedPlan::new(plan),
+            TableKind::Options => DerivedPlan::default(),
+        };
+        let has_lists = slots
+            .iter()
+            .any(|s| matches!(s.decode, Decode::BasicList | Decode::SubTemplateList | Decode::SubTemplateMultiList));
+        PlanMap { slots, absent, derived, scope_names, has_lists }
+    }
+
+    fn plan_map(&mut self, plan: &Arc<Plan>) -> Arc<PlanMap> {
+        let key = Arc::as_ptr(plan) as usize;
+        if let Some((_, map)) = self.plans.get(&key) {
+            return map.clone();
+        }
+        if self.plans.len() >= MAX_CACHED_PLANS {
+            self.plans.clear();
+        }
+        let map = Arc::new(self.map_plan(plan));
+        // The Arc<Plan> is kept so the pointer cannot be reused by another plan.
+        self.plans.insert(key, (plan.clone(), map.clone()));
+        map
+    }
+
+    /// Appends every record of `set`, deriving columns with `enrichment`.
+    /// Returns the number of rows appended (0 for a set of the other
+    /// table's kind, which is counted in
+    /// [`ColumnarStats::sets_other_table`]).
+    ///
+    /// The exporter is taken from the set's Transport Session.
+    pub fn append(&mut self, set: &DataSet<'_>, enrichment: &Enrichment) -> usize {
+        let wanted = match self.schema.kind() {
+            TableKind::Flows => !set.plan().is_options(),
+            TableKind::Options => set.plan().is_options(),
+        };
+        if !wanted {
+            self.stats.sets_other_table += 1;
+            return 0;
+        }
+        let map = self.plan_map(set.plan());
+        let exporter = set.session().exporter.map(|a| a.ip());
+        let domain = set.domain().0;
+        let export_time = set.export_time();
+        let ctx = SetContext::new(export_time, enrichment.domain(exporter, domain));
+
+        let mut n = 0usize;
+        for record in set.records() {
+            self.append_record(&map, &record, &ctx);
+            n += 1;
+        }
+
+        // Provenance and absent columns, in bulk.
+        self.text.clear();
+        if let Some(ip) = exporter {
+            let _ = write!(self.text, "{ip}");
+        }
+        let f = self.fixed;
+        if let Some(Column::Scalar(Scalar::Utf8(b))) = self.columns.get_mut(f.exporter) {
+            match exporter {
+                Some(_) => (0..n).for_each(|_| b.append_value(&self.text)),
+                None => b.append_nulls(n),
+            }
+        }
+        if let Some(Column::Scalar(Scalar::U32(b))) = self.columns.get_mut(f.domain) {
+            b.append_value_n(domain, n);
+        }
+        if let Some(Column::Scalar(Scalar::U16(b))) = self.columns.get_mut(f.template) {
+            b.append_value_n(set.plan().id().0, n);
+        }
+        if let Some(Column::Scalar(Scalar::TsS(b))) = self.columns.get_mut(f.export_time) {
+            b.append_value_n(i64::from(export_time), n);
+        }
+        if let Some(Column::List(l)) = f.scope_fields.and_then(|i| self.columns.get_mut(i)) {
+            for _ in 0..n {
+                if let Scalar::Utf8(items) = l.values() {
+                    for name in &map.scope_names {
+                        items.append_value(name);
+                    }
+                }
+                l.append(true);
+            }
+        }
+        for c in &map.absent {
+            if let Some(col) = self.columns.get_mut(*c) {
+                col.append_nulls(n);
+            }
+        }
+        self.rows += n;
+        self.stats.rows += n as u64;
+        self.stats.sets += 1;
+        n
+    }
+
+    fn append_record(&mut self, map: &PlanMap, record: &Record<'_>, ctx: &SetContext<'_>) {
+        let data = record.bytes();
+        let fields = record.plan().fields();
+        self.spans.clear();
+        let mut pos = 0usize;
+        let mut ok = true;
+        for (i, (slot, field)) in map.slots.iter().zip(fields).enumerate() {
+            let span = if ok { field_span(data, pos, &field.spec) } else { None };
+            self.spans.push(span);
+            let raw = span.and_then(|(s, e)| {
+                pos = e;
+                data.get(s..e)
+            });
+            ok &= raw.is_some();
+            if slot.column == UNPLACED {
+                self.stats.values_unplaced += 1;
+                continue;
+            }
+            if field.length_mismatch {
+                self.stats.values_octets_fallback += 1;
+            }
+            let Some(col) = self.columns.get_mut(slot.column) else { continue };
+            match (col, raw) {
+                (Column::Scalar(s), Some(raw)) => s.append_raw(slot.decode, raw, &mut self.stats),
+                (col @ (Column::List(_) | Column::Records(_)), Some(_)) if map.has_lists => match record.value(i) {
+                    Some(v) => col.append_list(&v, &mut self.stats),
+                    None => {
+                        col.append_nulls(1);
+                        self.stats.values_null_invalid += 1;
+                    }
+                },
+                (col, _) => {
+                    // Only a caller-built record can be shorter than its plan.
+                    col.append_nulls(1);
+                    self.stats.values_null_invalid += 1;
+                }
+            }
+        }
+        let Some(base) = self.fixed.derived else { return };
+        let spans = &self.spans;
+        let raw = |i: usize| spans.get(i).copied().flatten().and_then(|(s, e)| data.get(s..e));
+        let row = map.derived.compute(raw, ctx, &mut self.labels, &mut self.stats);
+        self.append_derived(base, &row);
+    }
+
+    fn append_derived(&mut self, base: usize, row: &DerivedRow<'_>) {
+        let Some(cols) = self.columns.get_mut(base..) else { return };
+        let mut it = cols.iter_mut();
+        let utf8 = |c: Option<&mut Column>, v: Option<&str>| {
+            if let Some(Column::Scalar(Scalar::Utf8(b))) = c {
+                b.append_option(v);
+            }
+        };
+        // Order: DerivedColumn::ALL.
+        utf8(it.next(), row.outcome);
+        utf8(it.next(), row.reason);
+        if let Some(Column::List(l)) = it.next() {
+            if row.labels {
+                if let Scalar::U32(items) = l.values() {
+                    items.append_slice(&self.labels);
+                }
+                l.append(true);
+            } else {
+                l.append_null();
+            }
+        }
+        for v in [row.start_ns, row.end_ns] {
+            if let Some(Column::Scalar(Scalar::TsNs(b))) = it.next() {
+                b.append_option(v);
+            }
+        }
+        if let Some(Column::Scalar(Scalar::U32(b))) = it.next() {
+            b.append_option(row.rate);
+        }
+        utf8(it.next(), row.ingress_name);
+        utf8(it.next(), row.egress_name);
+        utf8(it.next(), row.ingress_vrf);
+        utf8(it.next(), row.egress_vrf);
+        utf8(it.next(), row.srh);
+    }
+
+    /// Finishes the rows appended so far into a batch and starts afresh
+    /// (the schema and plan cache are kept).
+    pub fn finish(&mut self) -> Result<RecordBatch, ColumnarError> {
+        debug_assert!(self.columns_in_step(), "every column holds one value per row");
+        let arrays: Vec<ArrayRef> = self.columns.iter_mut().map(Column::finish).collect();
+        self.rows = 0;
+        Ok(RecordBatch::try_new(self.schema.arrow_schema().clone(), arrays)?)
+    }
+
+    /// True when every column holds [`len`](Self::len) values (a check for
+    /// tests and debug assertions).
+    pub(crate) fn columns_in_step(&self) -> bool {
+        self.columns.iter().all(|c| c.len() == self.rows)
+    }
+}

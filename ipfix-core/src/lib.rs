@@ -94,7 +94,7 @@ pub use error::{ListProblem, Malformed, MessageError, SkipReason, TemplateProble
 pub use field::{ElementId, FieldSpecifier, ObservationDomainId, TemplateId, REVERSE_PEN, VARIABLE_LENGTH};
 pub use message::{message_length, MessageHeader, HEADER_LEN, VERSION};
 pub use plan::{Decode, Plan, PlanField};
-pub use record::{decoded_type, DateTime, Field, Fields, OwnedValue, Record, Scope, TemplateTable, Value, NTP_UNIX_OFFSET};
+pub use record::{decoded_type, DateTime, Field, Fields, OwnedValue, RawFields, Record, Scope, TemplateTable, Value, NTP_UNIX_OFFSET};
 pub use sequence::{SequenceEvent, SequenceTracker};
 pub use session::{Config, DataRecords, DataSet, Decoded, Decoder, DomainStats, Event, Stats};
 pub use set::{RawSet, SetHeader, SetKind, Sets, MIN_DATA_SET_ID, OPTIONS_TEMPLATE_SET_ID, SET_HEADER_LEN, TEMPLATE_SET_ID};

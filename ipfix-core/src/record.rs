@@ -122,16 +122,25 @@ pub struct Scope<'a> {
     /// Templates of the record's Observation Domain.
     pub templates: &'a TemplateTable,
     /// Current list nesting depth (0 for a top-level record).
-    pub depth: usize,
+    pub depth: u8,
     /// Maximum nesting depth.
-    pub max_depth: usize,
+    pub max_depth: u8,
 }
 
-fn be_uint(b: &[u8]) -> u64 {
-    b.iter().fold(0u64, |acc, x| (acc << 8) | u64::from(*x))
+/// Big-endian unsigned integer of 0..=8 octets (RFC 7011 §6.2 reduced size).
+#[inline]
+pub(crate) fn be_uint(b: &[u8]) -> u64 {
+    match b {
+        [a] => u64::from(*a),
+        [a, b] => u64::from(u16::from_be_bytes([*a, *b])),
+        [a, b, c, d] => u64::from(u32::from_be_bytes([*a, *b, *c, *d])),
+        [a, b, c, d, e, f, g, h] => u64::from_be_bytes([*a, *b, *c, *d, *e, *f, *g, *h]),
+        _ => b.iter().fold(0u64, |acc, x| (acc << 8) | u64::from(*x)),
+    }
 }
 
 /// Decodes one value of the given decoder from exactly its octets.
+#[inline]
 pub(crate) fn decode_value<'a>(decode: Decode, b: &'a [u8], scope: Scope<'a>) -> Value<'a> {
     match decode {
         Decode::Unsigned if b.len() <= 8 => Value::Unsigned(be_uint(b)),
@@ -211,6 +220,7 @@ pub(crate) fn read_var_len(data: &[u8], pos: usize) -> Option<(usize, usize)> {
 
 /// Finds where the value of a field with specifier length `len` lies, starting
 /// at `pos` in `data`. Returns (value start, value end); `None` on overrun.
+#[inline]
 pub(crate) fn field_span(data: &[u8], pos: usize, spec: &FieldSpecifier) -> Option<(usize, usize)> {
     let (start, len) = if spec.is_variable() { read_var_len(data, pos)? } else { (pos, usize::from(spec.length)) };
     let end = start.checked_add(len)?;
@@ -251,6 +261,18 @@ impl<'a> Record<'a> {
     /// The record's octets as sent.
     pub const fn bytes(&self) -> &'a [u8] {
         self.data
+    }
+
+    /// Iterates the fields with their raw octets (variable-length prefixes
+    /// removed), without decoding: the fastest path, for column builders
+    /// that convert by [`PlanField::decode`] themselves (see [`Decode::value`]).
+    pub fn raw_fields(&self) -> RawFields<'a> {
+        RawFields { plan: self.plan, data: self.data, index: 0, pos: 0 }
+    }
+
+    /// The scope nested lists of this record resolve templates in.
+    pub const fn scope(&self) -> Scope<'a> {
+        self.scope
     }
 
     /// Iterates the fields with their values, in template order.
@@ -298,6 +320,42 @@ impl<'a> Record<'a> {
     }
 }
 
+/// Iterator over (field, raw octets) of a [`Record`].
+#[derive(Debug, Clone)]
+pub struct RawFields<'a> {
+    plan: &'a Plan,
+    data: &'a [u8],
+    index: usize,
+    pos: usize,
+}
+
+impl<'a> Iterator for RawFields<'a> {
+    type Item = (&'a PlanField, &'a [u8]);
+
+    #[inline]
+    fn next(&mut self) -> Option<Self::Item> {
+        let spec = self.plan.fields().get(self.index)?;
+        self.index += 1;
+        let (start, end) = field_span(self.data, self.pos, &spec.spec)?;
+        self.pos = end;
+        Some((spec, self.data.get(start..end)?))
+    }
+}
+
+impl Decode {
+    /// Decodes one value from exactly its octets (RFC 7011 §6.1, §6.2).
+    #[inline]
+    pub fn value<'a>(self, raw: &'a [u8], scope: Scope<'a>) -> Value<'a> {
+        decode_value(self, raw, scope)
+    }
+
+    /// A big-endian unsigned integer of 1..=8 octets, widened (RFC 7011 §6.2).
+    #[inline]
+    pub fn unsigned(raw: &[u8]) -> u64 {
+        be_uint(raw)
+    }
+}
+
 /// Iterator over the fields of a [`Record`].
 #[derive(Debug, Clone)]
 pub struct Fields<'a> {
@@ -311,6 +369,7 @@ pub struct Fields<'a> {
 impl<'a> Iterator for Fields<'a> {
     type Item = Field<'a>;
 
+    #[inline]
     fn next(&mut self) -> Option<Field<'a>> {
         let spec = self.plan.fields().get(self.index)?;
         self.index += 1;
@@ -531,5 +590,14 @@ mod tests {
         assert_eq!(read_var_len(&[5, 0, 0, 0, 0, 0], 0), Some((1, 5)));
         assert_eq!(read_var_len(&[0xff, 0x03, 0xe8], 0), Some((3, 1000)));
         assert_eq!(read_var_len(&[0xff, 0x03], 0), None);
+    }
+}
+
+#[cfg(test)]
+mod size_tests {
+    #[test]
+    fn value_stays_small() {
+        // Values are returned per field on the hot path; keep them compact.
+        assert!(std::mem::size_of::<super::Value<'static>>() <= 40);
     }
 }

@@ -39,7 +39,7 @@ pub struct Config {
     /// templateLifeTime 1800 s). `None` keeps templates forever.
     pub template_lifetime: Option<Duration>,
     /// Deepest nesting of RFC 6313 lists accepted.
-    pub max_list_depth: usize,
+    pub max_list_depth: u8,
 }
 
 impl Default for Config {
@@ -88,7 +88,7 @@ impl Config {
     }
     /// Sets [`Config::max_list_depth`].
     #[must_use]
-    pub const fn with_max_list_depth(mut self, n: usize) -> Self {
+    pub const fn with_max_list_depth(mut self, n: u8) -> Self {
         self.max_list_depth = n;
         self
     }
@@ -183,7 +183,7 @@ pub struct DataSet<'a> {
     data: Cow<'a, [u8]>,
     count: usize,
     offset: usize,
-    max_depth: usize,
+    max_depth: u8,
     replayed: bool,
 }
 

@@ -374,7 +374,8 @@ fn skip_gap(stream: &mut Stream, charged: &mut usize, upto: Option<u64>, stats: 
 fn drop_pending(stream: &mut Stream, stats: &mut CaptureStats) {
     let n = stream.pending.len() as u64;
     let reason = match stream.kind {
-        Kind::NotIpfix => SkipReason::NotIpfix,
+        // A candidate never delivered anything: not shown to be IPFIX.
+        Kind::NotIpfix | Kind::Candidate => SkipReason::NotIpfix,
         _ if stream.synced => SkipReason::TcpIncompleteMessage,
         _ => SkipReason::TcpResync,
     };

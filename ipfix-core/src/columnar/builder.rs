@@ -404,7 +404,7 @@ impl ArrayBuilder for Scalar {
 
 /// One column's builder.
 #[derive(Debug)]
-enum Column {
+pub(crate) enum Column {
     Scalar(Scalar),
     /// basicList, mplsLabelStack, scopeFields.
     List(ListBuilder<Scalar>),
@@ -413,7 +413,7 @@ enum Column {
 }
 
 impl Column {
-    fn new(t: &ArrowType, capacity: usize) -> Option<Self> {
+    pub(crate) fn new(t: &ArrowType, capacity: usize) -> Option<Self> {
         match t {
             ArrowType::List(item) => match item.data_type() {
                 ArrowType::Struct(_) => {
@@ -446,7 +446,7 @@ impl Column {
         }
     }
 
-    fn finish(&mut self) -> ArrayRef {
+    pub(crate) fn finish(&mut self) -> ArrayRef {
         match self {
             Self::Scalar(s) => s.finish(),
             Self::List(l) => Arc::new(l.finish()),

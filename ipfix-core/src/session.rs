@@ -436,8 +436,14 @@ struct Pass<'a> {
     removed: Vec<u16>,
     new_pending: Vec<Pending>,
     replayed_pending: Vec<usize>,
+    /// Octets buffered, this message's new pending sets included.
+    pending_bytes: usize,
     records: u64,
-    complete: bool,
+    /// Data Sets of this message neither decoded nor replayed; the
+    /// sequence accounting needs to know whether every record was counted.
+    unresolved: usize,
+    /// Records of earlier messages replayed by this one.
+    replayed_earlier: u64,
     template_delta: isize,
     stats: Stats,
     dstats: DomainStats,
@@ -501,6 +507,8 @@ impl Decoder {
         }
         let now = received.unwrap_or(Duration::from_secs(u64::from(header.export_time)));
         let body = msg.get(HEADER_LEN..).unwrap_or_default();
+        let new_session = !self.sessions.contains_key(session);
+        let new_domain = self.sessions.get(session).is_none_or(|s| !s.domains.contains_key(&domain.0));
         let pass = {
             let state = self.sessions.entry(*session).or_default();
             let template_count = state.template_count;
@@ -510,7 +518,19 @@ impl Decoder {
         };
         match pass {
             Ok(pass) => Ok(self.commit(session, header, now, pass)),
-            Err(problem) => Err(self.malformed(*session, Some(domain), problem)),
+            Err(problem) => {
+                // The message is discarded whole (RFC 7011 §9.1): it leaves no
+                // empty session or domain behind either, so malformed input
+                // cannot fill the session table (Config::max_sessions).
+                if new_session {
+                    self.sessions.remove(session);
+                } else if new_domain {
+                    if let Some(state) = self.sessions.get_mut(session) {
+                        state.domains.remove(&domain.0);
+                    }
+                }
+                Err(self.malformed(*session, Some(domain), problem))
+            }
         }
     }
 
@@ -559,7 +579,7 @@ impl Decoder {
             }
         }
         // Sequence accounting (RFC 7011 §3.1 with Errata EID 4396).
-        let seq_events = dstate.stats.sequence.observe(header.sequence_number, pass.records, pass.complete);
+        let seq_events = dstate.stats.sequence.observe(header.sequence_number, pass.records, pass.unresolved == 0);
         let ds = &mut dstate.stats;
         ds.messages += 1;
         ds.records_decoded += pass.dstats.records_decoded;
@@ -584,6 +604,15 @@ impl Decoder {
             Some(SequenceEvent::Uncounted { records }) => self.stats.records_skipped_by_sequence += u64::from(records),
             Some(SequenceEvent::Reset) => self.stats.sequence_resets += 1,
             None => {}
+        }
+        if pass.replayed_earlier > 0 {
+            // Records of earlier messages decoded now were counted as
+            // uncounted when the sequence numbers passed over them: they were
+            // late, not skipped.
+            let r = pass.replayed_earlier;
+            self.stats.records_skipped_by_sequence = self.stats.records_skipped_by_sequence.saturating_sub(r);
+            ds.sequence.uncounted_records = ds.sequence.uncounted_records.saturating_sub(r);
+            ds.sequence.received_records += r;
         }
         merge_stats(&mut self.stats, pass.stats);
         Decoded { header, events: pass.events.into_iter() }
@@ -694,13 +723,14 @@ fn run_pass<'a>(
         removed: Vec::new(),
         new_pending: Vec::new(),
         replayed_pending: Vec::new(),
+        pending_bytes,
         records: 0,
-        complete: true,
+        unresolved: 0,
+        replayed_earlier: 0,
         template_delta: 0,
         stats: Stats::default(),
         dstats: DomainStats::default(),
     };
-    let mut pending_bytes = pending_bytes;
     for set in Sets::new(body, HEADER_LEN) {
         let set = set?;
         match set.header.kind() {
@@ -710,6 +740,7 @@ fn run_pass<'a>(
                 for rec in records {
                     apply_template_record(config, session, domain, rec.offset, rec.record, options, dstate, template_count, &mut pass);
                 }
+                replay_same_message(config, session, &mut pass)?;
             }
             SetKind::Data(id) => {
                 let plan = pass.table.get(&id).cloned();
@@ -735,9 +766,9 @@ fn run_pass<'a>(
                     None => {
                         // RFC 7011 §9.3: the collector MAY keep such records
                         // briefly and decode them once the template arrives.
-                        pass.complete = false;
-                        if pending_bytes + set.body.len() <= config.max_pending_bytes {
-                            pending_bytes += set.body.len();
+                        pass.unresolved += 1;
+                        if pass.pending_bytes + set.body.len() <= config.max_pending_bytes {
+                            pass.pending_bytes += set.body.len();
                             pass.stats.sets_buffered += 1;
                             pass.new_pending.push(Pending {
                                 template_id: id,
@@ -780,6 +811,42 @@ fn note_records(pass: &mut Pass<'_>, plan: &Plan, count: usize) {
     }
     pass.dstats.records_decoded += count as u64;
     *pass.dstats.records_by_template.entry(plan.id().0).or_default() += count as u64;
+}
+
+/// Decodes the Data Sets buffered earlier in this message whose template the
+/// message has defined since (RFC 7011 §8.2 wants the template first; a
+/// collector can still use it). They belong to this message: their records
+/// count for its sequence accounting, and a bad length makes it malformed.
+fn replay_same_message(config: &Config, session: &TransportSession, pass: &mut Pass<'_>) -> Result<(), Malformed> {
+    if pass.new_pending.is_empty() {
+        return Ok(());
+    }
+    for p in std::mem::take(&mut pass.new_pending) {
+        let Some(plan) = pass.table.get(&p.template_id).cloned() else {
+            pass.new_pending.push(p);
+            continue;
+        };
+        let scope = Scope { templates: &pass.table, depth: 0, max_depth: config.max_list_depth };
+        let count = count_records(&plan, &p.data, p.offset + SET_HEADER_LEN, scope)?;
+        pass.pending_bytes = pass.pending_bytes.saturating_sub(p.data.len());
+        pass.unresolved = pass.unresolved.saturating_sub(1);
+        pass.records += count as u64;
+        pass.stats.sets_replayed += 1;
+        note_records(pass, &plan, count);
+        pass.events.push(Event::Data(DataSet {
+            session: *session,
+            header: p.header,
+            received: p.received,
+            templates: Arc::clone(&pass.table),
+            plan,
+            data: Cow::Owned(p.data),
+            count,
+            offset: p.offset,
+            max_depth: config.max_list_depth,
+            replayed: true,
+        }));
+    }
+    Ok(())
 }
 
 /// Counts the records of a Data Set, checking every length. Octets after the
@@ -920,6 +987,7 @@ fn define<'a>(
         match count_records(&plan, &p.data, p.offset + SET_HEADER_LEN, scope) {
             Ok(count) => {
                 pass.stats.sets_replayed += 1;
+                pass.replayed_earlier += count as u64;
                 note_records(pass, &plan, count);
                 pass.events.push(Event::Data(DataSet {
                     session: *session,

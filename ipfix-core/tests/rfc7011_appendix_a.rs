@@ -427,7 +427,7 @@ fn a5_variable_length_forms() {
     let expected = vec![OwnedValue::String(name.into()), OwnedValue::Octets(section.clone())];
     let mut decoder = Decoder::new(Config::default());
     let out = decode(&mut decoder, &TransportSession::file(0), None, &msg).unwrap();
-    assert_eq!(values_of(&out, 300), [expected.clone()]);
+    assert_eq!(values_of(&out, 300), std::slice::from_ref(&expected));
 
     // RFC 7011 §7: the 3-octet form "may be used" for short values too.
     let mut enc = MessageEncoder::new(ObservationDomainId(DOMAIN)).with_length_prefix(LengthPrefix::ThreeOctet);

@@ -68,14 +68,18 @@
 //! `[{name=value,...},...]`. A record whose template is unknown gives an
 //! item with null `fields` (counted).
 //!
-//! Reduced-size values widen to the declared type (RFC 7011 §6.2). The
-//! Arrow schema is stored in the Parquet key-value metadata under
-//! `ARROW:schema` (parquet's `ArrowWriter` default, kept on), so readers
-//! restore exact Arrow types, e.g. Timestamp(Second), which Parquet itself
-//! cannot express. Each element column carries field metadata
-//! `ipfix.elementId`, `ipfix.enterpriseNumber` (enterprise only) and
-//! `ipfix.dataType`; the schema carries `flowsift.table` = `flows` or
-//! `options` and `flowsift.contract` = [`CONTRACT_VERSION`].
+//! Reduced-size values widen to the declared type (RFC 7011 §6.2).
+//!
+//! **In the Parquet file** ([`ParquetSink`]) the table's Arrow schema is
+//! embedded under `ARROW:schema`; each element column carries field
+//! metadata `ipfix.elementId`, `ipfix.enterpriseNumber` (enterprise only)
+//! and `ipfix.dataType`; the schema carries `flowsift.table` = `flows` or
+//! `options` and `flowsift.contract` = [`CONTRACT_VERSION`] (also as plain
+//! Parquet key-value metadata). Parquet has no seconds unit: Timestamp(Second)
+//! columns are stored as TIMESTAMP(MILLIS, UTC), as pyarrow stores them, so
+//! readers (pyarrow, parquet's own Arrow reader, and readers without Arrow
+//! schema support) see `timestamp[ms, tz=UTC]` with the same instants
+//! rather than a bare integer. The other types read back exactly.
 //!
 //! **Nothing is lost silently.** A value that cannot be placed (ill-formed
 //! UTF-8, an undefined boolean, a timestamp outside the Arrow range, a list

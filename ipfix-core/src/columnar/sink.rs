@@ -4,10 +4,12 @@
 use std::io::Write;
 use std::sync::Arc;
 
-use arrow::array::RecordBatch;
-use arrow::datatypes::SchemaRef;
-use parquet::arrow::ArrowWriter;
+use arrow::array::{ArrayRef, RecordBatch};
+use arrow::datatypes::{DataType as ArrowType, Field, Schema, SchemaRef, TimeUnit};
+use parquet::arrow::arrow_writer::ArrowWriterOptions;
+use parquet::arrow::{encode_arrow_schema, ArrowWriter, ARROW_SCHEMA_META_KEY};
 use parquet::basic::{Compression as PqCompression, ZstdLevel};
+use parquet::file::metadata::KeyValue;
 use parquet::file::properties::WriterProperties;
 
 use super::builder::TableBuilder;
@@ -97,14 +99,39 @@ pub struct SinkSummary {
 
 /// Writes batches of one [`TableSchema`] to a Parquet file.
 ///
-/// The Arrow schema is embedded in the file's key-value metadata under
-/// `ARROW:schema` (the `ArrowWriter` default, kept on), so Arrow readers get
-/// back the exact types, e.g. Timestamp(Second, "UTC"), which Parquet stores
-/// as milliseconds.
+/// The Arrow schema of the table is embedded in the file's key-value
+/// metadata under `ARROW:schema` (base64 Arrow IPC, as parquet's
+/// `ArrowWriter` and pyarrow write it), next to plain `flowsift.table` and
+/// `flowsift.contract` keys.
+///
+/// **Seconds.** Parquet has no seconds unit for timestamps, and parquet's
+/// `ArrowWriter` would store Timestamp(Second) columns (`exportTime`,
+/// dateTimeSeconds elements) as bare INT64, which general readers show as
+/// plain integers. So, like pyarrow for the same Arrow type, the sink
+/// stores them as TIMESTAMP(MILLIS, UTC-adjusted), values × 1000; the
+/// embedded schema still says Timestamp(Second, "UTC"). Readers seen doing
+/// this (pyarrow, parquet's Arrow reader) return `timestamp[ms, tz=UTC]`
+/// with the same instants: a seconds column does not survive Parquet in
+/// either, not even one pyarrow wrote itself.
 pub struct ParquetSink<W: Write + Send> {
     writer: ArrowWriter<W>,
     schema: SchemaRef,
+    storage: SchemaRef,
+    /// Per column: stored with another type than the table's.
+    coerced: Vec<bool>,
     rows: u64,
+}
+
+/// The type a column is stored as: Timestamp(Second) → Timestamp(Millisecond),
+/// also as list items.
+fn storage_type(t: &ArrowType) -> ArrowType {
+    match t {
+        ArrowType::Timestamp(TimeUnit::Second, tz) => ArrowType::Timestamp(TimeUnit::Millisecond, tz.clone()),
+        ArrowType::List(item) => {
+            ArrowType::List(Arc::new(item.as_ref().clone().with_data_type(storage_type(item.data_type()))))
+        }
+        other => other.clone(),
+    }
 }
 
 impl<W: Write + Send> std::fmt::Debug for ParquetSink<W> {
@@ -116,13 +143,24 @@ impl<W: Write + Send> std::fmt::Debug for ParquetSink<W> {
 impl<W: Write + Send> ParquetSink<W> {
     /// Starts a file on `out` for tables of `schema`.
     pub fn try_new(out: W, schema: &TableSchema, options: SinkOptions) -> Result<Self, ColumnarError> {
+        let arrow = schema.arrow_schema().clone();
+        let fields: Vec<Field> =
+            arrow.fields().iter().map(|f| f.as_ref().clone().with_data_type(storage_type(f.data_type()))).collect();
+        let coerced = arrow.fields().iter().zip(&fields).map(|(a, b)| a.data_type() != b.data_type()).collect();
+        let storage = Arc::new(Schema::new_with_metadata(fields, arrow.metadata().clone()));
+        let mut metadata = vec![KeyValue::new(ARROW_SCHEMA_META_KEY.to_owned(), encode_arrow_schema(&arrow))];
+        let mut plain: Vec<_> = arrow.metadata().iter().collect();
+        plain.sort();
+        metadata.extend(plain.into_iter().map(|(k, v)| KeyValue::new(k.clone(), v.clone())));
         let props = WriterProperties::builder()
             .set_compression(options.compression.parquet())
             .set_max_row_group_row_count(Some(options.row_group_rows.max(1)))
+            .set_key_value_metadata(Some(metadata))
             .build();
-        let arrow = schema.arrow_schema().clone();
-        let writer = ArrowWriter::try_new(out, arrow.clone(), Some(props))?;
-        Ok(Self { writer, schema: arrow, rows: 0 })
+        // The writer would embed the storage schema; the table's is embedded above.
+        let writer_options = ArrowWriterOptions::new().with_properties(props).with_skip_arrow_metadata(true);
+        let writer = ArrowWriter::try_new_with_options(out, storage.clone(), writer_options)?;
+        Ok(Self { writer, schema: arrow, storage, coerced, rows: 0 })
     }
 
     /// Writes a batch; full row groups are flushed to `out` as they fill.
@@ -130,7 +168,24 @@ impl<W: Write + Send> ParquetSink<W> {
         if batch.schema() != self.schema {
             return Err(ColumnarError::SchemaMismatch);
         }
-        self.writer.write(batch)?;
+        if self.coerced.iter().any(|c| *c) {
+            let columns = batch
+                .columns()
+                .iter()
+                .zip(self.storage.fields())
+                .zip(&self.coerced)
+                .map(|((c, f), coerce)| {
+                    if *coerce {
+                        arrow::compute::cast(c, f.data_type())
+                    } else {
+                        Ok(c.clone())
+                    }
+                })
+                .collect::<Result<Vec<ArrayRef>, _>>()?;
+            self.writer.write(&RecordBatch::try_new(self.storage.clone(), columns)?)?;
+        } else {
+            self.writer.write(batch)?;
+        }
         self.rows += batch.num_rows() as u64;
         Ok(())
     }

@@ -888,16 +888,24 @@ fn parquet_keeps_arrow_schema_in_metadata() {
         let reader = ParquetRecordBatchReaderBuilder::try_new(bytes::Bytes::from(bytes)).unwrap();
         let kv = reader.metadata().file_metadata().key_value_metadata().unwrap();
         assert!(kv.iter().any(|k| k.key == ARROW_SCHEMA_META_KEY), "ARROW:schema stored");
-        // Parquet has no seconds unit; the embedded schema restores it.
+        // Parquet has no seconds unit: stored as TIMESTAMP(MILLIS, UTC)
+        // like pyarrow does, and read back as milliseconds.
+        let ms = ArrowType::Timestamp(TimeUnit::Millisecond, Some("UTC".into()));
+        assert_eq!(reader.schema().field_with_name("exportTime").unwrap().data_type(), &ms);
+        let parquet_type = reader.parquet_schema().columns().iter().find(|c| c.name() == "exportTime").unwrap().logical_type_ref().cloned();
         assert_eq!(
-            reader.schema().field_with_name("exportTime").unwrap().data_type(),
-            &ArrowType::Timestamp(TimeUnit::Second, Some("UTC".into()))
+            parquet_type,
+            Some(parquet::basic::LogicalType::timestamp(true, parquet::basic::TimeUnit::MILLIS))
         );
         assert_eq!(reader.schema().metadata().get("flowsift.contract").map(String::as_str), Some(CONTRACT_VERSION));
         let batches: Vec<RecordBatch> = reader.build().unwrap().collect::<Result<_, _>>().unwrap();
         let back = arrow::compute::concat_batches(&batches[0].schema(), &batches).unwrap();
-        assert_eq!(back.columns(), c.flows.columns(), "{compression:?}");
-        assert_eq!(back.schema().fields(), c.flows.schema().fields(), "{compression:?}");
+        let seconds = ArrowType::Timestamp(TimeUnit::Second, Some("UTC".into()));
+        for (i, f) in c.flows.schema().fields().iter().enumerate() {
+            let got = back.column(i);
+            let got = if f.name() == "exportTime" { arrow::compute::cast(got, &seconds).unwrap() } else { got.clone() };
+            assert_eq!(&got, c.flows.column(i), "{} {compression:?}", f.name());
+        }
     }
 }
 

@@ -9,7 +9,10 @@ use std::process::ExitCode;
 
 use clap::{Parser, Subcommand};
 
+pub mod convert;
 pub mod drops;
+pub mod inspect;
+pub mod pipeline;
 
 /// Where, and why, are packets being dropped?
 ///
@@ -28,6 +31,10 @@ pub struct Cli {
 pub enum Command {
     /// Drop figures grouped by where (next hop, interface, labels, segments, peer AS, VRF) and why.
     Drops(drops::DropsArgs),
+    /// Convert captures (pcap, pcapng, RFC 5655 IPFIX files) to Parquet, with an exact account of what was decoded, skipped and lost.
+    Convert(convert::ConvertArgs),
+    /// Show what a capture holds: exporters, observation domains, templates and their fields, loss, malformed messages.
+    Inspect(inspect::InspectArgs),
 }
 
 /// Parses the command line, runs it, and maps the outcome to an exit code.
@@ -36,6 +43,8 @@ pub fn run_main() -> ExitCode {
     let cli = Cli::parse();
     let result = match cli.command {
         Command::Drops(args) => drops::run(args),
+        Command::Convert(args) => convert::run(args),
+        Command::Inspect(args) => inspect::run(args),
     };
     match result {
         Ok(code) => code,

@@ -1,15 +1,255 @@
-//! `flowsift drops`.
+//! `flowsift drops`: where, and why, packets are dropped.
+//!
+//! Raw flags ([`DropsArgs`]) are validated into a [`DropsConfig`] before any
+//! file is read; the query and rendering live in `flow-analytics`.
 
+use std::io::{BufWriter, Write};
+use std::path::{Path, PathBuf};
 use std::process::ExitCode;
 
-/// Arguments of `flowsift drops`.
+use anyhow::{bail, Context};
+use flow_analytics::{parse_duration, parse_time, render, Dimension, DropQuery, SortKey};
+
+/// Examples and the dimension list, shown after `--help`.
+fn after_help() -> String {
+    let mut text = String::from(
+        "Dimensions (--by; any other name is taken as a column name):\n",
+    );
+    for dim in Dimension::NAMED {
+        let short = dim.short_name().unwrap_or_default();
+        text.push_str(&format!(
+            "  {short:<13} {}  [{}]\n",
+            dim.description(),
+            dim.reads().join(", ")
+        ));
+    }
+    text.push_str(
+        "
+Measures per group: droppedPackets, droppedOctets, totalPackets, totalOctets,
+dropRatio (dropped/total packets), flowRecords, and droppedPacketsLow/High, an
+approximate 95% interval on dropped packets. Counts are scaled by the sampling
+rate (1-in-N) where it is known; records without a known rate count once, and
+the headline says how many there were. Unless grouping by reason, a topReason
+column names the reason with the most drops in each group.
+
+Record time is flowEndTime, else exportTime: --every buckets on it (aligned to
+whole multiples since 1970), --from is inclusive and --to exclusive.
+
+Examples:
+  # Why are packets dropped? (grouped by reason, the default)
+  flowsift drops exports/
+
+  # Which next hops drop most, and mainly why, in a maintenance window
+  flowsift drops exports/ --by next-hop \\
+      --from 2026-11-30T01:00:00Z --to 2026-11-30T03:00:00Z
+
+  # Drops per ingress interface and reason, in 5-minute buckets, top 5 each
+  flowsift drops 'exports/date=2026-11-30/**/*.parquet' \\
+      --by in-if,reason --every 5m --top 5
+
+  # Only one exporter's TCP traffic, by peer AS, as JSON for a script
+  flowsift drops exports/ --by peer-as \\
+      --where \"exporter = '192.0.2.1' AND protocolIdentifier = 6\" --format json
+
+  # SRv6: which segment lists lose the largest share of their packets
+  flowsift drops exports/ --by segments --sort drop-ratio
+
+Output: the table mode prints a one-line headline, then the groups. JSON (an
+array of objects) and CSV print only data; lists keep their stored order there
+(segment lists last segment first), while the table shows segment paths in
+travel order.",
+    );
+    text
+}
+
+/// Output format.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+pub enum Format {
+    /// Headline and aligned table.
+    Table,
+    /// JSON array of objects, one per group.
+    Json,
+    /// CSV with a header row.
+    Csv,
+}
+
+/// Arguments of `flowsift drops`, as given.
 #[derive(Debug, clap::Args)]
+#[command(after_help = after_help())]
 pub struct DropsArgs {
-    /// Parquet files, directories or globs.
+    /// Parquet files, directories (searched recursively; key=value
+    /// directories become columns) or quoted glob patterns.
+    #[arg(value_name = "INPUT", required = true)]
     pub inputs: Vec<String>,
+
+    /// Group by these dimensions, comma-separated: short names listed below,
+    /// or any column name.
+    #[arg(long, value_name = "DIM[,DIM...]", default_value = "reason")]
+    pub by: String,
+
+    /// Also group into time buckets of this width, e.g. 1m, 5m, 1h, 1h30m.
+    #[arg(long, value_name = "DURATION")]
+    pub every: Option<String>,
+
+    /// Only records at or after this time (RFC 3339, e.g. 2026-11-30T01:00:00Z).
+    #[arg(long, value_name = "TIME")]
+    pub from: Option<String>,
+
+    /// Only records before this time (RFC 3339).
+    #[arg(long, value_name = "TIME")]
+    pub to: Option<String>,
+
+    /// Only records for which this SQL condition over the columns holds,
+    /// e.g. "exporter = '192.0.2.1' AND protocolIdentifier = 6".
+    #[arg(long = "where", value_name = "SQL")]
+    pub filter: Option<String>,
+
+    /// Show this many groups (per bucket with --every); 0 shows all.
+    #[arg(long, value_name = "N", default_value_t = 20)]
+    pub top: usize,
+
+    /// Order groups by: dropped-packets, dropped-octets, drop-ratio,
+    /// total-packets, total-octets or flow-records (largest first).
+    #[arg(long, value_name = "KEY", default_value = "dropped-packets")]
+    pub sort: String,
+
+    /// Output format.
+    #[arg(long, value_enum, value_name = "FORMAT", default_value_t = Format::Table)]
+    pub format: Format,
+}
+
+/// `flowsift drops`, validated.
+#[derive(Debug)]
+pub struct DropsConfig {
+    /// The query to run.
+    pub query: DropQuery,
+    /// How to print it.
+    pub format: Format,
+}
+
+impl TryFrom<DropsArgs> for DropsConfig {
+    type Error = anyhow::Error;
+
+    fn try_from(args: DropsArgs) -> anyhow::Result<Self> {
+        let inputs = args
+            .inputs
+            .iter()
+            .map(|input| check_input(Path::new(input)))
+            .collect::<anyhow::Result<Vec<PathBuf>>>()?;
+        let by = Dimension::parse_list(&args.by).context("--by")?;
+        let mut query = DropQuery::new(inputs)
+            .with_by(by)
+            .with_top(args.top)
+            .with_sort(args.sort.parse::<SortKey>().context("--sort")?);
+        if let Some(every) = &args.every {
+            query = query.with_every(parse_duration(every).context("--every")?);
+        }
+        let from = args.from.as_deref().map(parse_time).transpose().context("--from")?;
+        let to = args.to.as_deref().map(parse_time).transpose().context("--to")?;
+        if let (Some(from), Some(to)) = (from, to) {
+            if from >= to {
+                bail!("--from {from} is not before --to {to}");
+            }
+        }
+        if let Some(from) = from {
+            query = query.with_from(from);
+        }
+        if let Some(to) = to {
+            query = query.with_to(to);
+        }
+        if let Some(filter) = args.filter {
+            if filter.trim().is_empty() {
+                bail!("--where: empty condition");
+            }
+            query = query.with_filter_sql(filter);
+        }
+        Ok(DropsConfig {
+            query,
+            format: args.format,
+        })
+    }
+}
+
+/// Rejects files that are not Parquet, naming the way forward for
+/// captures. Directories and globs are checked by the query.
+fn check_input(path: &Path) -> anyhow::Result<PathBuf> {
+    if path.is_file() {
+        let parquet = flow_analytics::is_parquet(path)
+            .with_context(|| format!("{}: cannot read", path.display()))?;
+        if !parquet {
+            bail!(
+                "{}: not a Parquet file. Captures (pcap, pcapng, RFC 5655 IPFIX files) \
+                 are not read directly yet: convert them first with `flowsift convert`, \
+                 then run `flowsift drops` on the Parquet output",
+                path.display()
+            );
+        }
+    }
+    Ok(path.to_path_buf())
 }
 
 /// Runs `flowsift drops`.
-pub fn run(_args: DropsArgs) -> anyhow::Result<ExitCode> {
+pub fn run(args: DropsArgs) -> anyhow::Result<ExitCode> {
+    let config = DropsConfig::try_from(args)?;
+    let table = config.query.run()?;
+    let stdout = std::io::stdout();
+    let mut out = BufWriter::new(stdout.lock());
+    match config.format {
+        Format::Table => render::write_table(&table, &mut out)?,
+        Format::Json => render::write_json(&table, &mut out)?,
+        Format::Csv => render::write_csv(&table, &mut out)?,
+    }
+    out.flush()?;
     Ok(ExitCode::SUCCESS)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use clap::Parser;
+
+    #[derive(Debug, Parser)]
+    struct Harness {
+        #[command(flatten)]
+        args: DropsArgs,
+    }
+
+    fn parse(argv: &[&str]) -> anyhow::Result<DropsConfig> {
+        let harness = Harness::try_parse_from(std::iter::once("drops").chain(argv.iter().copied()))?;
+        DropsConfig::try_from(harness.args)
+    }
+
+    #[test]
+    fn defaults_validate() {
+        let config = parse(&["somewhere/"]);
+        assert!(config.is_ok(), "{config:?}");
+    }
+
+    #[test]
+    fn bad_values_are_rejected_before_running() {
+        assert!(parse(&["x", "--every", "5"]).is_err());
+        assert!(parse(&["x", "--every", "0m"]).is_err());
+        assert!(parse(&["x", "--from", "yesterday"]).is_err());
+        assert!(parse(&["x", "--sort", "loudest"]).is_err());
+        assert!(parse(&["x", "--by", "reason,reason"]).is_err());
+        assert!(parse(&[
+            "x",
+            "--from",
+            "2026-11-30T02:00:00Z",
+            "--to",
+            "2026-11-30T01:00:00Z"
+        ])
+        .is_err());
+    }
+
+    #[test]
+    fn capture_input_points_to_convert() {
+        let dir = tempfile::tempdir().ok();
+        let Some(dir) = dir else { return };
+        let path = dir.path().join("export.pcap");
+        assert!(std::fs::write(&path, [0xd4, 0xc3, 0xb2, 0xa1, 2, 0, 4, 0]).is_ok());
+        let text = path.to_string_lossy().to_string();
+        let err = parse(&[text.as_str()]).err().map(|e| format!("{e:#}"));
+        assert!(err.is_some_and(|e| e.contains("flowsift convert")));
+    }
 }

@@ -51,20 +51,23 @@ pub fn is_parquet(path: &Path) -> std::io::Result<bool> {
     Ok(&head == PARQUET_MAGIC)
 }
 
+/// `key=value` directories of a path, in path order; `None` for Hive's
+/// null marker.
+type Partitions = Vec<(String, Option<String>)>;
+
 /// A Parquet file with the partition values its path carries.
 #[derive(Debug, Clone, PartialEq, Eq)]
 struct InputFile {
     path: PathBuf,
-    /// `key=value` directories between the input root and the file, in
-    /// path order; `None` for Hive's null marker.
-    partitions: Vec<(String, Option<String>)>,
+    /// `key=value` directories between the input root and the file.
+    partitions: Partitions,
 }
 
 /// Files sharing one schema and one set of partition values.
 struct Group {
     paths: Vec<PathBuf>,
     schema: SchemaRef,
-    partitions: Vec<(String, Option<String>)>,
+    partitions: Partitions,
 }
 
 /// The inputs of a query, opened: files found, schemas read, grouped.
@@ -86,7 +89,7 @@ impl Inputs {
             expand(input, &mut files)?;
         }
         let mut groups: Vec<Group> = Vec::new();
-        let mut index: BTreeMap<(String, Vec<(String, Option<String>)>), usize> = BTreeMap::new();
+        let mut index: BTreeMap<(String, Partitions), usize> = BTreeMap::new();
         let mut union = Schema::default();
         for file in files {
             let schema = read_schema(&file.path)?;
@@ -384,7 +387,7 @@ fn walk(root: &Path, dir: &Path, out: &mut Vec<InputFile>) -> Result<(), Error> 
 }
 
 /// The `key=value` directories between `root` and the file `path`.
-fn partitions(root: &Path, path: &Path) -> Vec<(String, Option<String>)> {
+fn partitions(root: &Path, path: &Path) -> Partitions {
     let Ok(relative) = path.strip_prefix(root) else {
         return Vec::new();
     };

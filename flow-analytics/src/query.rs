@@ -37,6 +37,7 @@ use std::time::Duration as StdDuration;
 
 use chrono::{DateTime, Utc};
 use polars::prelude::*;
+use polars_core::query_result::QueryResult;
 
 use crate::contract::{self, time_dtype};
 use crate::dimension::{Dimension, DimensionPlan};
@@ -271,7 +272,21 @@ impl DropQuery {
             reason_is_key,
         } = prepared;
         let bucketed = self.every.is_some();
-        let stage1 = stage1.collect()?;
+        // The streaming engine reads the Parquet row groups in batches and
+        // aggregates as it goes, so memory follows the number of groups,
+        // not the number of records.
+        let stage1 = match stage1.collect_with_engine(Engine::Streaming)? {
+            QueryResult::Single(frame) => frame,
+            QueryResult::Multiple(mut frames) => match frames.pop() {
+                Some(frame) if frames.is_empty() => frame,
+                _ => {
+                    return Err(PolarsError::ComputeError(
+                        "streaming engine returned several results for one query".into(),
+                    )
+                    .into())
+                }
+            },
+        };
 
         // Stage 2: merge reasons into groups, naming the top reason.
         let mut out_keys: Vec<String> = Vec::new();
@@ -297,6 +312,7 @@ impl DropQuery {
         };
         let summary = summarize(&totals, top)?;
 
+        let groups = table.height();
         let table = keep_top(table, self.top, bucketed)?;
         let mut order: Vec<String> = Vec::new();
         for key in &out_keys {
@@ -313,7 +329,14 @@ impl DropQuery {
         }
         order.extend(MEASURES.iter().map(|s| s.to_string()));
         let frame = table.select(order)?;
-        Ok(DropTable::new(frame, plans, self.every, !reason_is_key, summary))
+        Ok(DropTable {
+            frame,
+            plans,
+            every: self.every,
+            has_top_reason: !reason_is_key,
+            groups,
+            summary,
+        })
     }
 
     /// The optimized polars plan of the scan-and-group stage, as text:

@@ -75,6 +75,14 @@ pub fn write_table(table: &DropTable, out: &mut impl Write) -> io::Result<()> {
             .collect();
         writeln!(out, "{}", line(cells))?;
     }
+    if table.group_count() > frame.height() {
+        writeln!(
+            out,
+            "(showing {} of {} rows)",
+            thousands(frame.height() as u64),
+            thousands(table.group_count() as u64)
+        )?;
+    }
     Ok(())
 }
 
@@ -108,10 +116,9 @@ pub fn headline(table: &DropTable) -> String {
             .map(|(heading, value)| format!("{heading} {value}"))
             .collect();
         let mut text = format!("top: {}", what.join(", "));
-        if table.has_top_reason {
-            if let Some(reason) = &top.reason {
-                text.push_str(&format!(", mostly {reason}"));
-            }
+        if table.has_top_reason && top.dropped_packets > 0 {
+            let reason = top.reason.as_deref().unwrap_or("(unknown reason)");
+            text.push_str(&format!(", mostly {reason}"));
         }
         text.push_str(&format!(" ({} dropped)", thousands(top.dropped_packets)));
         parts.push(text);
@@ -184,9 +191,17 @@ fn table_columns(table: &DropTable) -> Result<Vec<TextColumn>, Error> {
     }
     if table.has_top_reason {
         let column = frame.column(TOP_REASON)?;
+        let dropped = frame.column(DROPPED_PACKETS)?;
         let cells = rows
             .clone()
-            .map(|r| Ok(plain_text(&column.get(r)?).unwrap_or_else(|| "-".to_string())))
+            .map(|r| {
+                Ok(match plain_text(&column.get(r)?) {
+                    Some(reason) => reason,
+                    // Drops whose records named no reason.
+                    None if any_u64(&dropped.get(r)?).unwrap_or(0) > 0 => "(unknown)".to_string(),
+                    None => "-".to_string(),
+                })
+            })
             .collect::<Result<_, Error>>()?;
         out.push(TextColumn {
             heading: "top reason".to_string(),

@@ -85,30 +85,16 @@ pub struct DropSummary {
 /// `droppedPacketsHigh`.
 #[derive(Debug, Clone)]
 pub struct DropTable {
-    frame: DataFrame,
+    pub(crate) frame: DataFrame,
     pub(crate) plans: Vec<DimensionPlan>,
-    every: Option<Duration>,
+    pub(crate) every: Option<Duration>,
     pub(crate) has_top_reason: bool,
-    summary: DropSummary,
+    /// Rows before `top` was applied.
+    pub(crate) groups: usize,
+    pub(crate) summary: DropSummary,
 }
 
 impl DropTable {
-    pub(crate) fn new(
-        frame: DataFrame,
-        plans: Vec<DimensionPlan>,
-        every: Option<Duration>,
-        has_top_reason: bool,
-        summary: DropSummary,
-    ) -> Self {
-        DropTable {
-            frame,
-            plans,
-            every,
-            has_top_reason,
-            summary,
-        }
-    }
-
     /// The grouped figures.
     pub fn frame(&self) -> &DataFrame {
         &self.frame
@@ -122,6 +108,12 @@ impl DropTable {
     /// Totals and headline facts.
     pub fn summary(&self) -> &DropSummary {
         &self.summary
+    }
+
+    /// How many rows (groups, per bucket when bucketed) matched before
+    /// `top` kept the first ones.
+    pub fn group_count(&self) -> usize {
+        self.groups
     }
 
     /// The bucket width, when bucketed.

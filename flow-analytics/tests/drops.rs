@@ -197,6 +197,11 @@ fn sorting_and_top() {
     assert_eq!(keys, vec!["2001:db8::1", "192.0.2.1"]);
     // Totals cover all records, not only the rows kept.
     assert_eq!(table.summary().total_packets, 1207);
+    assert_eq!(table.group_count(), 3);
+    let mut text = Vec::new();
+    render::write_table(&table, &mut text).unwrap();
+    let text = String::from_utf8(text).unwrap();
+    assert!(text.ends_with("(showing 2 of 3 rows)\n"), "{text}");
 
     let by_ratio = DropQuery::new([&file])
         .with_by([Dimension::NextHop])
@@ -595,4 +600,18 @@ fn input_errors() {
         DropQuery::new([&file]).with_every(Duration::ZERO).run(),
         Err(Error::BadEvery)
     ));
+}
+
+#[test]
+#[ignore = "prints the optimized plan for inspection"]
+fn print_plan() {
+    let dir = tempfile::tempdir().unwrap();
+    let file = basic(dir.path());
+    let plan = DropQuery::new([&file])
+        .with_by([Dimension::NextHop])
+        .with_filter_sql("packetDeltaCount > 5")
+        .with_from(parse_time("2026-11-30T01:01:00Z").unwrap())
+        .explain()
+        .unwrap();
+    println!("{plan}");
 }

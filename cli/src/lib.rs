@@ -11,6 +11,7 @@ use clap::{Parser, Subcommand};
 
 pub mod convert;
 pub mod drops;
+pub mod synth;
 pub mod inspect;
 pub mod pipeline;
 
@@ -31,6 +32,8 @@ pub struct Cli {
 pub enum Command {
     /// Drop figures grouped by where (next hop, interface, labels, segments, peer AS, VRF) and why.
     Drops(drops::DropsArgs),
+    /// Synthetic IPFIX captures of invented scenarios, with their ground truth.
+    Synth(synth::SynthArgs),
     /// Convert captures (pcap, pcapng, RFC 5655 IPFIX files) to Parquet, with an exact account of what was decoded, skipped and lost.
     Convert(convert::ConvertArgs),
     /// Show what a capture holds: exporters, observation domains, templates and their fields, loss, malformed messages.
@@ -43,6 +46,7 @@ pub fn run_main() -> ExitCode {
     let cli = Cli::parse();
     let result = match cli.command {
         Command::Drops(args) => drops::run(args),
+        Command::Synth(args) => synth::run(args),
         Command::Convert(args) => convert::run(args),
         Command::Inspect(args) => inspect::run(args),
     };

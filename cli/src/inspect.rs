@@ -186,10 +186,14 @@ pub struct RejectedTemplate {
     pub at: Place,
 }
 
+/// The versions of one Template ID kept with their plans, and how many
+/// more were seen but not kept.
+type Versions = (Vec<(Arc<Plan>, TemplateReport)>, u32);
+
 #[derive(Debug, Default)]
 struct DomainTemplates {
-    /// By Template ID: versions in order, and versions not kept.
-    versions: BTreeMap<u16, (Vec<(Arc<Plan>, TemplateReport)>, u32)>,
+    /// By Template ID.
+    versions: BTreeMap<u16, Versions>,
     rejected: Vec<RejectedTemplate>,
     events_dropped: u64,
 }

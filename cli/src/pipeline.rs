@@ -192,7 +192,7 @@ pub struct EventContext<'a> {
 }
 
 /// Reads inputs through a decoder, keeping the accounting.
-#[derive(Debug, Clone)]
+#[derive(Debug, Clone, Default)]
 pub struct Runner {
     /// Limits and filters of the capture readers.
     pub capture: CaptureOptions,
@@ -200,12 +200,6 @@ pub struct Runner {
     pub decoder: Config,
     /// Stop at the first malformed message or damaged input.
     pub strict: bool,
-}
-
-impl Default for Runner {
-    fn default() -> Self {
-        Self { capture: CaptureOptions::default(), decoder: Config::default(), strict: false }
-    }
 }
 
 /// Messages between progress updates.

@@ -1,1 +1,3 @@
 //! End-to-end tests: capture to Parquet to analytics.
+
+mod convert;

@@ -6,9 +6,9 @@
 //!
 //! - Records in sets that could not be decoded are only known from the
 //!   Sequence Numbers (RFC 7011 §3.1): the decoder counts them as
-//!   "uncounted" once the next message of the domain arrives. A set that
-//!   waited for its template and was decoded later (RFC 7011 §9.3) is in
-//!   that count too, so its records are taken out again here.
+//!   "uncounted" once the next message of the domain arrives (and takes
+//!   back those of sets decoded later, RFC 7011 §9.3). They are attributed
+//!   here to the reason of the domain's skipped sets.
 //! - A malformed message is discarded whole (RFC 7011 §9.1), so its records
 //!   show up as a sequence gap at the next message. When the discarded
 //!   message started exactly at the expected Sequence Number, that gap is
@@ -296,8 +296,6 @@ struct DomainAcc {
     report: DomainReport,
     /// Records the decoder inferred in undecodable sets (all snapshots).
     uncounted: u64,
-    /// Records of sets decoded after waiting for their template.
-    replayed_records: u64,
     replayed_sets: u64,
     buffered_sets: u64,
     expired_sets: u64,
@@ -372,19 +370,14 @@ impl Accounting {
         let input = self.sessions.get(session).map_or(0, |s| s.input);
         let d = self.session(session, input).domains.entry(header.observation_domain_id.0).or_default();
         match event {
-            Event::Data(set) if set.replayed() => {
-                d.replayed_sets += 1;
-                d.replayed_records += set.len() as u64;
-            }
+            Event::Data(set) if set.replayed() => d.replayed_sets += 1,
             Event::SetSkipped { reason, .. } => {
                 *d.report.sets_skipped_by_reason.entry(reason.name().to_owned()).or_default() += 1;
             }
-            Event::SequenceGap { expected, missing, .. } => {
-                if d.malformed_seq == Some(*expected) {
-                    // The discarded message started where the next records
-                    // were expected: the gap is its records.
-                    d.malformed_records += u64::from(*missing);
-                }
+            // The discarded message started where the next records were
+            // expected: the gap is its records.
+            Event::SequenceGap { expected, missing, .. } if d.malformed_seq == Some(*expected) => {
+                d.malformed_records += u64::from(*missing);
             }
             _ => {}
         }
@@ -545,9 +538,7 @@ impl Accounting {
                 let mut r = d.report.clone();
                 r.observation_domain_id = *id;
                 r.sets_skipped = r.sets_skipped_by_reason.values().sum();
-                // Records of sets that waited and were decoded later are in
-                // the decoder's "uncounted" too: take them out.
-                let undecoded = d.uncounted.saturating_sub(d.replayed_records);
+                let undecoded = d.uncounted;
                 if undecoded > 0 {
                     let reason = r
                         .sets_skipped_by_reason

@@ -105,11 +105,7 @@ pub fn convert(inputs: &Inputs, settings: &ConvertSettings, progress: &Progress)
     let mut enrichment = Enrichment::new();
     runner.run_pass(inputs, progress, "pass 1/2", |_, event| {
         match event {
-            Event::TemplateLearned { plan, .. } => {
-                if seen.insert(plan.template().clone()) {
-                    plans.push(plan);
-                }
-            }
+            Event::TemplateLearned { plan, .. } if seen.insert(plan.template().clone()) => plans.push(plan),
             Event::Data(set) if set.plan().is_options() => {
                 enrichment.add_options_set(&set);
             }

@@ -102,7 +102,7 @@ pub struct ConvertArgs {
     pub strict: bool,
 
     /// Take only UDP/TCP traffic to or from these ports as IPFIX
-    /// (comma-separated, e.g. 4739,9995). Default: any port, recognised by
+    /// (comma-separated, e.g. 4739,4740). Default: any port, recognised by
     /// content.
     #[arg(long, value_name = "PORT[,PORT...]", value_delimiter = ',')]
     pub ports: Vec<u16>,

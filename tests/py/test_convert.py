@@ -25,8 +25,8 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 from scapy.layers.inet import IP, TCP, UDP, fragment
-from scapy.layers.inet6 import IPv6
-from scapy.layers.l2 import ARP, CookedLinux, Dot1Q, Ether
+from scapy.layers.inet6 import IPv6, IPv6ExtHdrFragment, fragment6
+from scapy.layers.l2 import ARP, CookedLinux, Dot1Q, Ether, Loopback
 from scapy.packet import Raw
 from scapy.utils import wrpcap, wrpcapng
 
@@ -38,6 +38,7 @@ COLLECTOR = "198.51.100.9"
 COLLECTOR6 = "2001:db8::9"
 TS_MS = pa.timestamp("ms", tz="UTC")
 TS_S = pa.timestamp("s", tz="UTC")
+MAC = dict(src="00:00:5e:00:53:01", dst="00:00:5e:00:53:02")
 
 
 def flowsift_bin():
@@ -75,6 +76,10 @@ def udp_packets(msgs, src=EXPORTER, dst=COLLECTOR, sport=50000, dport=4739, t=ix
             p = Ether(src="00:00:5e:00:53:01", dst="00:00:5e:00:53:02") / ip
         elif link == "vlan":
             p = Ether(src="00:00:5e:00:53:01", dst="00:00:5e:00:53:02") / Dot1Q(vlan=100) / ip
+        elif link == "raw":
+            p = ip
+        elif link == "loopback":
+            p = Loopback(type=24 if ":" in src else 2) / ip
         elif link == "sll":
             p = CookedLinux(pkttype=0, lladdrtype=1, lladdrlen=6, src=b"\x00\x00\x5e\x00\x53\x01\x00\x00", proto=0x86DD if ":" in src else 0x0800) / ip
         else:
@@ -189,6 +194,40 @@ def test_linux_cooked_capture(tmp_path):
     check_accounting(stats, 43)
 
 
+@pytest.mark.parametrize("link,linktype", [("raw", 101), ("loopback", 0)])
+def test_raw_ip_and_loopback_link_types(tmp_path, link, linktype):
+    # LINKTYPE_RAW (101) and BSD loopback / DLT_NULL (0) (link-type numbers
+    # from memory, unconfirmed; scapy writes the headers).
+    exp = ix.Exporter(7)
+    msgs = ix.flow_stream(exp, 30, 10)
+    cap = tmp_path / f"{link}.pcap"
+    wrpcap(str(cap), udp_packets(msgs, link=link), linktype=linktype)
+    _, out, stats = convert(tmp_path, cap)
+    check_flows_table(out, range(30))
+    check_accounting(stats, 33)
+
+
+def test_ipv6_fragmentation(tmp_path):
+    # IPv6 Fragment extension header (scapy's fragment6), pcapng container.
+    exp = ix.Exporter(9)
+    msgs = ix.flow_stream(exp, 200, 100)
+    pkts = []
+    for i, m in enumerate(msgs):
+        whole = IPv6(src=EXPORTER6, dst=COLLECTOR6) / IPv6ExtHdrFragment(id=77 + i) / UDP(sport=50000, dport=4739) / Raw(m)
+        frags = fragment6(whole, 1280)
+        assert len(frags) >= 3
+        for j, f in enumerate(frags):
+            p = Ether(**MAC) / f
+            p.time = ix.T0 + i + j * 0.001
+            pkts.append(p)
+    cap = tmp_path / "frag6.pcapng"
+    wrpcapng(str(cap), pkts)
+    _, out, stats = convert(tmp_path, cap)
+    check_flows_table(out, range(200), exporter=EXPORTER6, domain=9)
+    check_accounting(stats, 203)
+    assert stats["capture"]["fragmentsReassembled"] == len(msgs)
+
+
 def test_ip_fragmentation_out_of_order(tmp_path):
     # One 4,000-octet message in 1,400-octet IPv4 fragments (scapy's
     # fragment()), sent last fragment first.
@@ -209,9 +248,6 @@ def test_ip_fragmentation_out_of_order(tmp_path):
     check_flows_table(out, range(300))
     check_accounting(stats, 303)
     assert stats["capture"]["fragmentsReassembled"] == len(msgs)
-
-
-MAC = dict(src="00:00:5e:00:53:01", dst="00:00:5e:00:53:02")
 
 
 def tcp_packets(stream, seg=700, retransmit=True, fin=True):

@@ -65,7 +65,9 @@
 //! ```
 
 use std::collections::HashMap;
+use std::hash::{BuildHasherDefault, Hasher};
 use std::net::{Ipv4Addr, Ipv6Addr};
+use std::sync::Arc;
 
 use crate::data_type::DataType;
 use crate::error::TemplateProblem;
@@ -257,6 +259,29 @@ impl Compiled {
     }
 }
 
+/// Hashes Template IDs with one multiplication. The IDs are the caller's,
+/// not an attacker's, so SipHash's protection buys nothing on the
+/// per-record path.
+#[derive(Debug, Clone, Copy, Default)]
+struct IdHasher(u64);
+
+impl Hasher for IdHasher {
+    fn finish(&self) -> u64 {
+        self.0
+    }
+    fn write(&mut self, bytes: &[u8]) {
+        for b in bytes {
+            self.write_u16(u16::from(*b) ^ (self.0 as u16).rotate_left(8));
+        }
+    }
+    fn write_u16(&mut self, n: u16) {
+        self.0 = (self.0 ^ u64::from(n)).wrapping_mul(0x9e37_79b9_7f4a_7c15);
+    }
+}
+
+/// Announced templates by ID.
+type TemplateMap = HashMap<u16, Arc<Compiled>, BuildHasherDefault<IdHasher>>;
+
 /// The Set being filled: its ID, where its header starts in the buffer, and
 /// the shortest record it may hold (padding must be shorter, §3.3.1).
 #[derive(Debug, Clone, Copy)]
@@ -281,7 +306,7 @@ pub struct MessageEncoder {
     prefix: LengthPrefix,
     transport: Option<Transport>,
     types: HashMap<ElementId, DataType>,
-    templates: HashMap<u16, Compiled>,
+    templates: TemplateMap,
     /// Data Records added so far in this stream, modulo 2^32.
     sequence: u32,
     /// Closed messages back to back, then the open one.
@@ -305,7 +330,7 @@ impl MessageEncoder {
             prefix: LengthPrefix::default(),
             transport: None,
             types: HashMap::new(),
-            templates: HashMap::new(),
+            templates: TemplateMap::default(),
             sequence: 0,
             out: Vec::new(),
             starts: Vec::new(),
@@ -429,7 +454,7 @@ impl MessageEncoder {
             }
         }
         self.write_template(&compiled)?;
-        self.templates.insert(template_id.0, compiled);
+        self.templates.insert(template_id.0, Arc::new(compiled));
         Ok(())
     }
 
@@ -475,14 +500,10 @@ impl MessageEncoder {
     /// Templates, each by ascending ID). Over UDP templates "MUST be
     /// re-sent" periodically (RFC 7011 §8.4).
     pub fn refresh_templates(&mut self) -> Result<(), EncodeError> {
-        let mut ids: Vec<(bool, u16)> = self.templates.values().map(|c| (c.template.is_options(), c.template.id.0)).collect();
-        ids.sort_unstable();
-        for (_, id) in ids {
-            if let Some(compiled) = self.templates.remove(&id) {
-                let written = self.write_template(&compiled);
-                self.templates.insert(id, compiled);
-                written?;
-            }
+        let mut all: Vec<Arc<Compiled>> = self.templates.values().cloned().collect();
+        all.sort_unstable_by_key(|c| (c.template.is_options(), c.template.id));
+        for compiled in all {
+            self.write_template(&compiled)?;
         }
         Ok(())
     }
@@ -555,11 +576,9 @@ impl MessageEncoder {
     /// Starts a Data Record of template `id` whose values are given one by
     /// one; see [`RecordEncoder`].
     pub fn record(&mut self, id: TemplateId) -> Result<RecordEncoder<'_>, EncodeError> {
-        if !self.templates.contains_key(&id.0) {
-            return Err(EncodeError::UnknownTemplate { template_id: id });
-        }
+        let template = Arc::clone(self.templates.get(&id.0).ok_or(EncodeError::UnknownTemplate { template_id: id })?);
         self.scratch.clear();
-        Ok(RecordEncoder { encoder: self, template_id: id, index: 0 })
+        Ok(RecordEncoder { encoder: self, template, index: 0 })
     }
 
     /// Adds a Data Record of template `id` from octets encoded by the
@@ -789,23 +808,20 @@ impl MessageEncoder {
 #[derive(Debug)]
 pub struct RecordEncoder<'e> {
     encoder: &'e mut MessageEncoder,
-    template_id: TemplateId,
+    template: Arc<Compiled>,
     index: usize,
 }
 
 impl RecordEncoder<'_> {
     fn put(&mut self, value: Val<'_>) -> Result<&mut Self, EncodeError> {
         let MessageEncoder { templates, types, prefix, scratch, .. } = &mut *self.encoder;
-        let compiled = templates.get(&self.template_id.0).ok_or(EncodeError::UnknownTemplate { template_id: self.template_id })?;
+        let compiled = &*self.template;
+        let template_id = compiled.template.id;
         let (Some(spec), Some(data_type)) = (compiled.template.fields.get(self.index), compiled.types.get(self.index)) else {
-            return Err(EncodeError::ValueCount {
-                template_id: self.template_id,
-                expected: compiled.template.fields.len(),
-                given: self.index + 1,
-            });
+            return Err(EncodeError::ValueCount { template_id, expected: compiled.template.fields.len(), given: self.index + 1 });
         };
         let ctx = Ctx { templates, types, prefix: *prefix };
-        let at = At { template_id: self.template_id, field_index: self.index };
+        let at = At { template_id, field_index: self.index };
         let before = scratch.len();
         match encode_field(&ctx, scratch, at, *data_type, spec.length, value, 0) {
             Ok(()) => {
@@ -873,17 +889,15 @@ impl RecordEncoder<'_> {
     /// Adds the record to the message. Every field must have a value.
     pub fn finish(self) -> Result<(), EncodeError> {
         let encoder = self.encoder;
-        let compiled = encoder.templates.get(&self.template_id.0).ok_or(EncodeError::UnknownTemplate { template_id: self.template_id })?;
+        let compiled = &*self.template;
+        let template_id = compiled.template.id;
         if self.index != compiled.template.fields.len() {
-            return Err(EncodeError::ValueCount {
-                template_id: self.template_id,
-                expected: compiled.template.fields.len(),
-                given: self.index,
-            });
+            return Err(EncodeError::ValueCount { template_id, expected: compiled.template.fields.len(), given: self.index });
         }
-        let min_len = compiled.min_len;
+        // A withdrawal while the builder was open is impossible: it holds
+        // the encoder borrowed.
         let scratch = std::mem::take(&mut encoder.scratch);
-        let result = encoder.append_record(self.template_id, min_len, &scratch);
+        let result = encoder.append_record(template_id, compiled.min_len, &scratch);
         encoder.scratch = scratch;
         result
     }
@@ -953,7 +967,7 @@ impl Val<'_> {
 /// What encoding a value needs besides the value.
 #[derive(Clone, Copy)]
 struct Ctx<'e> {
-    templates: &'e HashMap<u16, Compiled>,
+    templates: &'e TemplateMap,
     types: &'e HashMap<ElementId, DataType>,
     prefix: LengthPrefix,
 }
@@ -1288,7 +1302,7 @@ mod tests {
     fn variable_length_forms() {
         // RFC 7011 §7, Appendix A.5.1 and A.5.2.
         let mut out = Vec::new();
-        let templates = HashMap::new();
+        let templates = TemplateMap::default();
         let types = HashMap::new();
         let ctx = Ctx { templates: &templates, types: &types, prefix: LengthPrefix::Shortest };
         let at = At { template_id: TemplateId(256), field_index: 0 };

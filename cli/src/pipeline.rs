@@ -16,6 +16,23 @@
 //!   the schema and the enrichment are complete; then the records) and
 //!   writes the flows and options tables with a writer thread.
 //!
+//! Decoding captures on the fly for another subcommand (e.g. `drops`
+//! given pcap files) is [`convert`] into a temporary directory:
+//!
+//! ```text
+//! let inputs = Inputs::open(&args)?;                 // checks every input
+//! let dir = tempfile::tempdir()?;
+//! let flows = dir.path().join("flows.parquet");
+//! let settings = ConvertSettings {
+//!     options: options_path_for(&flows),
+//!     flows,
+//!     sink: SinkOptions::default(),
+//!     runner: Runner::default(),
+//! };
+//! let outcome = convert(&inputs, &settings, &Progress::new(true))?;
+//! // query outcome.flows.path; outcome.accounting says what was skipped
+//! ```
+//!
 //! Template state follows RFC 7011: a Transport Session is exporter
 //! address and port, collector address and port and protocol, and is the
 //! same across inputs (a capture split into several files keeps its UDP
@@ -154,8 +171,13 @@ fn sniff(name: String, path: PathBuf) -> anyhow::Result<Input> {
             Err(e) => return Err(e).with_context(|| format!("cannot read input {name}")),
         }
     }
-    let format = detect(head.get(..got).unwrap_or_default()).map_err(|e| {
-        anyhow::anyhow!("input {name} is not a capture flowsift reads ({e}); expected classic pcap, pcapng or an RFC 5655 IPFIX file")
+    let format = detect(head.get(..got).unwrap_or_default()).map_err(|e| match e {
+        CaptureError::CompressedIpfixFile { kind } => anyhow::anyhow!(
+            "input {name} is {kind}-compressed: decompress it first, or pipe the decompressed bytes to '-' (RFC 5655 §10.2 allows compressed IPFIX files; flowsift reads them uncompressed)"
+        ),
+        other => anyhow::anyhow!(
+            "input {name} is not a capture flowsift reads: {other}; expected classic pcap, pcapng or an RFC 5655 IPFIX file"
+        ),
     })?;
     // Standard input's spool has a size only once written; a pipe or FIFO
     // given by path reports 0, which only affects the progress bar.
@@ -235,10 +257,10 @@ impl Runner {
                                 let header = *decoded.header();
                                 let ctx = EventContext { input: index, source: input, message, session: &session, header: &header, received };
                                 for event in decoded {
-                                    acc.observe(&session, &header, &event);
+                                    acc.observe(index, &session, &header, &event);
                                     on_event(&ctx, event)?;
                                 }
-                                acc.after_decode(&decoder, before, &session, &header, received);
+                                acc.after_decode(&decoder, before, index, &session, &header, received);
                             }
                             Err(err) => {
                                 acc.malformed(index, &data, &err);

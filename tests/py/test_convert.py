@@ -154,7 +154,9 @@ def test_classic_pcap_ethernet_udp(tmp_path):
     noise = [Ether(**mac) / ARP(psrc="192.0.2.2", pdst="192.0.2.3"), Ether(**mac) / IP(src="192.0.2.2", dst="192.0.2.53") / UDP(sport=5353, dport=53) / Raw(b"\x12\x34" * 10)]
     cap = tmp_path / "a.pcap"
     wrpcap(str(cap), udp_packets(msgs)[:3] + noise + udp_packets(msgs)[3:])
-    _, out, stats = convert(tmp_path, cap)
+    proc, out, stats = convert(tmp_path, cap)
+    # Not a terminal: no progress bar, only the summary.
+    assert b"pass 1/2" not in proc.stderr and b"records decoded" in proc.stderr
     check_flows_table(out, range(250))
     check_accounting(stats, 250 + 3)
     assert stats["optionsRecordsDecoded"] == 3
@@ -323,6 +325,8 @@ def test_several_inputs_share_udp_templates(tmp_path):
     _, out, stats = convert(tmp_path, a, b, ipfix_file)
     check_accounting(stats, 100 + 3 + 10 + 3)
     assert [i["format"] for i in stats["inputs"]] == ["pcap", "pcapng", "ipfix-file"]
+    # Each session names the input where it was first seen.
+    assert [(e["transport"], e["input"]) for e in stats["exporters"]] == [("udp", str(a)), ("file", str(ipfix_file))]
     # DuckDB: records per exporter/domain and packet sums from the formula.
     con = duckdb.connect()
     got = con.execute(

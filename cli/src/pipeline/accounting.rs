@@ -74,8 +74,15 @@ pub struct Accounting {
     /// Things the user should know (damaged inputs, sets that never found
     /// their template, ...).
     pub warnings: Vec<String>,
+    /// Sessions in order of first appearance.
     #[serde(skip)]
-    sessions: HashMap<TransportSession, SessionAcc>,
+    sessions: Vec<SessionAcc>,
+    #[serde(skip)]
+    index: HashMap<TransportSession, usize>,
+    /// The session of the previous message (most messages follow one of
+    /// the same session): compared instead of hashed.
+    #[serde(skip)]
+    last: Option<(TransportSession, usize)>,
     #[serde(skip)]
     order: Vec<TransportSession>,
     #[serde(skip)]
@@ -354,10 +361,31 @@ impl Accounting {
     }
 
     fn session(&mut self, session: &TransportSession, input: usize) -> &mut SessionAcc {
-        if !self.sessions.contains_key(session) {
-            self.order.push(*session);
-        }
-        self.sessions.entry(*session).or_insert_with(|| SessionAcc { input, ..SessionAcc::default() })
+        let i = match self.last {
+            Some((key, i)) if key == *session => i,
+            _ => {
+                let i = match self.index.get(session) {
+                    Some(i) => *i,
+                    None => {
+                        self.order.push(*session);
+                        self.sessions.push(SessionAcc { input, ..SessionAcc::default() });
+                        self.index.insert(*session, self.sessions.len() - 1);
+                        self.sessions.len() - 1
+                    }
+                };
+                self.last = Some((*session, i));
+                i
+            }
+        };
+        // `i` came from `index` or `last`, which only hold positions of
+        // entries already pushed (never removed): always in bounds.
+        #[allow(clippy::indexing_slicing)]
+        &mut self.sessions[i]
+    }
+
+    fn existing(&mut self, session: &TransportSession) -> Option<&mut SessionAcc> {
+        let i = *self.index.get(session)?;
+        self.sessions.get_mut(i)
     }
 
     pub(crate) fn before_decode(&self, decoder: &Decoder) -> Before {
@@ -366,8 +394,13 @@ impl Accounting {
     }
 
     /// Notes one event of an accepted message.
-    pub(crate) fn observe(&mut self, session: &TransportSession, header: &MessageHeader, event: &Event<'_>) {
-        let input = self.sessions.get(session).map_or(0, |s| s.input);
+    pub(crate) fn observe(&mut self, input: usize, session: &TransportSession, header: &MessageHeader, event: &Event<'_>) {
+        // Only a few kinds of event need the session's counters.
+        match event {
+            Event::Data(set) if !set.replayed() => return,
+            Event::Data(_) | Event::SetSkipped { .. } | Event::SequenceGap { .. } => {}
+            _ => return,
+        }
         let d = self.session(session, input).domains.entry(header.observation_domain_id.0).or_default();
         match event {
             Event::Data(set) if set.replayed() => d.replayed_sets += 1,
@@ -387,12 +420,12 @@ impl Accounting {
         &mut self,
         decoder: &Decoder,
         before: Before,
+        input: usize,
         session: &TransportSession,
         header: &MessageHeader,
         received: Option<Duration>,
     ) {
         let s = decoder.stats();
-        let input = self.sessions.get(session).map_or(0, |s| s.input);
         let acc = self.session(session, input);
         if let Some(t) = received {
             acc.first_captured = min_opt(acc.first_captured, Some(t));
@@ -432,7 +465,7 @@ impl Accounting {
     pub(crate) fn end_session(&mut self, decoder: &mut Decoder, session: &TransportSession) {
         self.snapshot(decoder, Some(session));
         let left = decoder.end_session(session) as u64;
-        if let Some(acc) = self.sessions.get_mut(session) {
+        if let Some(acc) = self.existing(session) {
             attribute_pending(acc.domains.values_mut(), left);
         }
     }
@@ -444,7 +477,8 @@ impl Accounting {
             .map(|(s, d, ds)| (*s, d.0, ds.clone()))
             .collect();
         for (session, domain, ds) in stats {
-            let input = self.sessions.get(&session).map_or(0, |s| s.input);
+            // Every session the decoder knows had a message accounted.
+            let input = self.existing(&session).map_or(0, |s| s.input);
             self.session(&session, input).domains.entry(domain).or_default().fold(&ds);
             self.domain_snapshots += 1;
         }
@@ -485,7 +519,7 @@ impl Accounting {
         let left = decoder.flush_pending() as u64;
         if left > 0 {
             let mut remaining = left;
-            for acc in self.sessions.values_mut() {
+            for acc in &mut self.sessions {
                 let here: u64 = acc.domains.values().map(DomainAcc::pending_sets).sum();
                 let take = here.min(remaining);
                 attribute_pending(acc.domains.values_mut(), take);
@@ -531,8 +565,7 @@ impl Accounting {
         let mut skipped = BTreeMap::<String, u64>::new();
         let mut exporters = Vec::with_capacity(self.order.len());
         let inputs: Vec<String> = self.inputs.iter().map(|i| i.path.clone()).collect();
-        for key in &self.order {
-            let Some(acc) = self.sessions.get_mut(key) else { continue };
+        for (key, acc) in self.order.iter().zip(self.sessions.iter_mut()) {
             let mut domains = Vec::with_capacity(acc.domains.len());
             for (id, d) in &mut acc.domains {
                 let mut r = d.report.clone();

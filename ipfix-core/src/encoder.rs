@@ -1,68 +1,6 @@
 //! The exporter side: IPFIX Messages (RFC 7011 §3) built from templates and
-//! values, for tests, capture generators and embedders that export.
-//!
-//! A [`MessageEncoder`] speaks for one Observation Domain in one stream
-//! (RFC 7011 §3.1). It remembers the templates it announced, counts the
-//! Sequence Number, packs Sets into messages no larger than a configured
-//! size and opens a new message when one is full. Like the decoder it owns
-//! no socket and reads no clock: the caller gives the Export Time to
-//! [`MessageEncoder::finish`] and sends the bytes it gets back.
-//!
-//! Three ways to add a Data Record, from most to least checked:
-//! - [`MessageEncoder::push_record`] takes one [`OwnedValue`] per field and
-//!   checks each against the field's abstract type and length;
-//! - [`MessageEncoder::record`] returns a [`RecordEncoder`] that takes the
-//!   values one typed call at a time without building an `OwnedValue`;
-//! - [`MessageEncoder::push_raw`] appends octets the caller encoded already
-//!   (only their length is checked): the fast path for generators.
-//!
-//! None of them allocates per record once the buffers have grown.
-//!
-//! # Example
-//!
-//! ```
-//! use ipfix_core::{
-//!     Config, Decoder, Event, FieldSpecifier, MessageEncoder, ObservationDomainId, OwnedValue,
-//!     Template, TemplateId, TransportSession,
-//! };
-//!
-//! // sourceIPv4Address (8), packetDeltaCount (2) reduced to 4 octets (RFC 7011 §6.2),
-//! // interfaceName (82) variable-length (RFC 7011 §7).
-//! let template = Template {
-//!     id: TemplateId(256),
-//!     scope_field_count: 0,
-//!     fields: vec![FieldSpecifier::iana(8, 4), FieldSpecifier::iana(2, 4), FieldSpecifier::iana(82, 65535)],
-//! };
-//! let mut encoder = MessageEncoder::new(ObservationDomainId(7)).with_max_message_size(1400);
-//! encoder.add_template(template)?;
-//! let records = [
-//!     vec![OwnedValue::Ipv4("192.0.2.12".parse()?), OwnedValue::Unsigned(5009), OwnedValue::String("eth0".into())],
-//!     vec![OwnedValue::Ipv4("192.0.2.27".parse()?), OwnedValue::Unsigned(748), OwnedValue::String("eth1".into())],
-//! ];
-//! for values in &records {
-//!     encoder.push_record(TemplateId(256), values)?;
-//! }
-//! let messages = encoder.finish(1_700_000_000);
-//! assert_eq!(messages.len(), 1);
-//!
-//! // Decode them back.
-//! let mut decoder = Decoder::new(Config::default());
-//! let session = TransportSession::file(0);
-//! let mut decoded = Vec::new();
-//! for message in &messages {
-//!     for event in decoder.decode(&session, None, message)? {
-//!         if let Event::Data(set) = event {
-//!             for record in set.records() {
-//!                 decoded.push(record.fields().map(|f| f.value.to_owned_value()).collect::<Vec<_>>());
-//!             }
-//!         }
-//!     }
-//! }
-//! assert_eq!(decoded, records);
-//! // The next message says how many Data Records came before it (RFC 7011 §3.1).
-//! assert_eq!(encoder.sequence_number(), 2);
-//! # Ok::<(), Box<dyn std::error::Error>>(())
-//! ```
+//! values. The public surface is [`MessageEncoder`], [`RecordEncoder`],
+//! [`LengthPrefix`] and [`EncodeError`].
 
 use std::collections::HashMap;
 use std::hash::{BuildHasherDefault, Hasher};
@@ -140,8 +78,8 @@ pub enum EncodeError {
         /// The Template ID.
         template_id: TemplateId,
     },
-    /// Over UDP the Exporting Process "MUST NOT send Template Withdrawal
-    /// Messages" (RFC 7011 §8.4).
+    /// Over UDP the Exporting Process MUST NOT send template withdrawals
+    /// (RFC 7011 §8.4).
     #[error("template withdrawals must not be sent over udp")]
     WithdrawalOverUdp,
     /// The number of values differs from the number of fields.
@@ -167,7 +105,7 @@ pub enum EncodeError {
         given: &'static str,
     },
     /// A value too large for the Field Length (RFC 7011 §6.2: reduced-size
-    /// encoding only "if the value fits"), a timestamp outside the type's
+    /// encoding only when the value fits), a timestamp outside the type's
     /// range, or a variable-length value over 65535 octets.
     #[error("template {template_id} field {field_index}: value does not fit in {length} octets")]
     DoesNotFit {
@@ -234,8 +172,8 @@ pub enum LengthPrefix {
     /// shortest form for everything else. The default.
     #[default]
     ThreeOctetForLists,
-    /// Always three octets, which RFC 7011 §7 allows "even if the length
-    /// of the Information Element is less than 255 octets".
+    /// Always three octets, which RFC 7011 §7 allows for any length, below
+    /// 255 octets too.
     ThreeOctet,
 }
 
@@ -291,12 +229,74 @@ struct OpenSet {
     min_record: usize,
 }
 
-/// Builds IPFIX Messages for one Observation Domain of one stream
-/// (RFC 7011 §3). See the [module documentation](self) for an example.
+/// Builds IPFIX Messages (RFC 7011 §3) for one Observation Domain of one
+/// stream: for tests, capture generators and embedders that export.
+///
+/// It remembers the templates it announced, counts the
+/// Sequence Number, packs Sets into messages no larger than a configured
+/// size and opens a new message when one is full. Like the decoder it owns
+/// no socket and reads no clock: the caller gives the Export Time to
+/// [`MessageEncoder::finish`] and sends the bytes it gets back.
+///
+/// Three ways to add a Data Record, from most to least checked:
+/// - [`MessageEncoder::push_record`] takes one [`OwnedValue`] per field and
+///   checks each against the field's abstract type and length;
+/// - [`MessageEncoder::record`] returns a [`RecordEncoder`] that takes the
+///   values one typed call at a time without building an `OwnedValue`;
+/// - [`MessageEncoder::push_raw`] appends octets the caller encoded already
+///   (only the framing is checked): the fast path for generators.
+///
+/// None of them allocates per record once the buffers have grown.
+///
+/// # Example
+///
+/// ```
+/// use ipfix_core::{
+///     Config, Decoder, Event, FieldSpecifier, MessageEncoder, ObservationDomainId, OwnedValue,
+///     Template, TemplateId, TransportSession,
+/// };
+///
+/// // sourceIPv4Address (8), packetDeltaCount (2) reduced to 4 octets (RFC 7011 §6.2),
+/// // interfaceName (82) variable-length (RFC 7011 §7).
+/// let template = Template {
+///     id: TemplateId(256),
+///     scope_field_count: 0,
+///     fields: vec![FieldSpecifier::iana(8, 4), FieldSpecifier::iana(2, 4), FieldSpecifier::iana(82, 65535)],
+/// };
+/// let mut encoder = MessageEncoder::new(ObservationDomainId(7)).with_max_message_size(1400);
+/// encoder.add_template(template)?;
+/// let records = [
+///     vec![OwnedValue::Ipv4("192.0.2.12".parse()?), OwnedValue::Unsigned(5009), OwnedValue::String("eth0".into())],
+///     vec![OwnedValue::Ipv4("192.0.2.27".parse()?), OwnedValue::Unsigned(748), OwnedValue::String("eth1".into())],
+/// ];
+/// for values in &records {
+///     encoder.push_record(TemplateId(256), values)?;
+/// }
+/// let messages = encoder.finish(1_700_000_000);
+/// assert_eq!(messages.len(), 1);
+///
+/// // Decode them back.
+/// let mut decoder = Decoder::new(Config::default());
+/// let session = TransportSession::file(0);
+/// let mut decoded = Vec::new();
+/// for message in &messages {
+///     for event in decoder.decode(&session, None, message)? {
+///         if let Event::Data(set) = event {
+///             for record in set.records() {
+///                 decoded.push(record.fields().map(|f| f.value.to_owned_value()).collect::<Vec<_>>());
+///             }
+///         }
+///     }
+/// }
+/// assert_eq!(decoded, records);
+/// // The next message says how many Data Records came before it (RFC 7011 §3.1).
+/// assert_eq!(encoder.sequence_number(), 2);
+/// # Ok::<(), Box<dyn std::error::Error>>(())
+/// ```
 ///
 /// Templates go out in the message being built when they are added, so
 /// they precede the Data Sets that use them (RFC 7011 §8: templates
-/// "SHOULD" be sent first; §8.2 requires it within one message). Over UDP,
+/// SHOULD be sent first; §8.2 requires it within one message). Over UDP,
 /// call [`MessageEncoder::refresh_templates`] periodically (RFC 7011 §8.4).
 #[derive(Debug)]
 pub struct MessageEncoder {
@@ -350,8 +350,8 @@ impl MessageEncoder {
     }
 
     /// Pads every Set with zero octets to a multiple of 4 (RFC 7011 §3.3.1:
-    /// padding "MUST be zero"), except where the padding would not be
-    /// "shorter than any allowable record in this Set".
+    /// padding MUST be zero), except where the padding would not be shorter
+    /// than every record the Set may hold (§3.3.1 requires that too).
     #[must_use]
     pub const fn with_set_padding(mut self, padding: bool) -> Self {
         self.padding = padding;
@@ -375,7 +375,8 @@ impl MessageEncoder {
         self
     }
 
-    /// Starts the Sequence Number at `sequence` (records "sent" before).
+    /// Starts the Sequence Number at `sequence`, as if that many Data
+    /// Records had been sent before.
     #[must_use]
     pub const fn with_sequence_number(mut self, sequence: u32) -> Self {
         self.sequence = sequence;
@@ -497,8 +498,8 @@ impl MessageEncoder {
     }
 
     /// Re-sends every announced template (Options Templates after
-    /// Templates, each by ascending ID). Over UDP templates "MUST be
-    /// re-sent" periodically (RFC 7011 §8.4).
+    /// Templates, each by ascending ID). Over UDP the exporter MUST re-send
+    /// its templates periodically (RFC 7011 §8.4).
     pub fn refresh_templates(&mut self) -> Result<(), EncodeError> {
         let mut all: Vec<Arc<Compiled>> = self.templates.values().cloned().collect();
         all.sort_unstable_by_key(|c| (c.template.is_options(), c.template.id));
@@ -611,13 +612,13 @@ impl MessageEncoder {
         self.reserve(id.0, min_len, record.len(), id, "record")?;
         self.out.extend_from_slice(record);
         // RFC 7011 §3.1: the Sequence Number counts Data Records, options
-        // data records included, "modulo 2^32".
+        // data records included, modulo 2^32.
         self.sequence = self.sequence.wrapping_add(1);
         Ok(())
     }
 
     /// Zero octets that pad a Set of `set_len` octets to a multiple of 4, if
-    /// padding is on and they are "shorter than any allowable record" (§3.3.1).
+    /// padding is on and they are shorter than any record of the Set (§3.3.1).
     const fn pad_for(&self, set_len: usize, min_record: usize) -> usize {
         if !self.padding {
             return 0;
@@ -676,8 +677,8 @@ impl MessageEncoder {
             version: VERSION,
             length: 0,
             export_time: 0,
-            // "the total number of IPFIX Data Records, sent ... prior to the
-            // receipt of this IPFIX Message" (§3.1 as corrected by EID 4396).
+            // Data Records sent in this stream from this domain before this
+            // message (§3.1 as corrected by Errata EID 4396).
             sequence_number: self.sequence,
             observation_domain_id: self.domain,
         };
@@ -1039,7 +1040,7 @@ fn encode_content(ctx: &Ctx<'_>, out: &mut Vec<u8>, at: At, ty: DataType, width:
     match (ty, value) {
         (_, Val::Raw(b)) => out.extend_from_slice(b),
         (T::Unsigned8 | T::Unsigned16 | T::Unsigned32 | T::Unsigned64, Val::Unsigned(v)) => {
-            // RFC 7011 §6.2: reduced size only "if the value fits": the
+            // RFC 7011 §6.2: reduced size only when the value fits: the
             // octets dropped must all be leading zeros.
             if width < 8 && v >> (8 * width) != 0 {
                 return Err(at.does_not_fit(width));
@@ -1047,7 +1048,7 @@ fn encode_content(ctx: &Ctx<'_>, out: &mut Vec<u8>, at: At, ty: DataType, width:
             out.extend_from_slice(v.to_be_bytes().get(8 - width.min(8)..).unwrap_or_default());
         }
         (T::Signed8 | T::Signed16 | T::Signed32 | T::Signed64, Val::Signed(v)) => {
-            // RFC 7011 §6.2: "signedness ... MUST be preserved": the value
+            // RFC 7011 §6.2: signedness MUST be preserved: the value
             // must survive sign extension from the top bit sent.
             if width < 8 {
                 let bits = 8 * width as u32;
@@ -1072,7 +1073,7 @@ fn encode_content(ctx: &Ctx<'_>, out: &mut Vec<u8>, at: At, ty: DataType, width:
                 out.extend_from_slice(&f.to_be_bytes());
             }
         }
-        // RFC 7011 §6.1.5: "true is encoded as 1 and false as 2".
+        // RFC 7011 §6.1.5: true is 1, false is 2.
         (T::Boolean, Val::Bool(v)) => out.push(if v { 1 } else { 2 }),
         (T::MacAddress, Val::Mac(m)) => out.extend_from_slice(&m),
         (T::String, Val::Str(s)) => out.extend_from_slice(s.as_bytes()),
@@ -1189,7 +1190,7 @@ fn encode_records(ctx: &Ctx<'_>, out: &mut Vec<u8>, template_id: u16, records: &
 /// An NTP timestamp (RFC 7011 §6.1.9, §6.1.10): seconds since 1900 and a
 /// binary fraction, rounded up so that the decoder reads back the same
 /// value. For dateTimeMicroseconds the time is cut to the microsecond and
-/// the low 11 fraction bits are zero ("SHOULD be zero", §6.1.9).
+/// the low 11 fraction bits are zero (§6.1.9: they SHOULD be zero).
 ///
 /// `None` outside the span the decoder's era rule reads back (1968-2104,
 /// see [`DateTime::from_ntp`]) or for nanoseconds of 10^9 or more.

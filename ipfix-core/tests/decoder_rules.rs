@@ -88,7 +88,7 @@ fn withdrawal_honoured_over_tcp_and_file() {
 
 #[test]
 fn withdrawal_ignored_and_counted_over_udp() {
-    // RFC 7011 §8.4: "the Collecting Process MUST ignore" withdrawals over UDP.
+    // RFC 7011 §8.4: the collector MUST ignore withdrawals over UDP.
     let mut d = Decoder::new(Config::default());
     decode(&mut d, &udp(), None, &message(1, 0, T0, &[t_a21(), data(3)])).unwrap();
     let out = decode(&mut d, &udp(), None, &message(1, 3, T0, &[set(2, &hex("01 00 00 00 00 02 00 00"))])).unwrap();
@@ -156,7 +156,7 @@ fn options_template_withdrawal_has_no_scope_count() {
 
 #[test]
 fn unknown_withdrawal_is_ignored_and_counted() {
-    // RFC 7011 §8.1: an unknown ID withdrawn: "MUST ignore", "SHOULD log".
+    // RFC 7011 §8.1: an unknown ID withdrawn: MUST ignore, SHOULD log.
     let mut d = Decoder::new(Config::default());
     decode(&mut d, &tcp(), None, &message(1, 0, T0, &[t_a21()])).unwrap();
     let out = decode(&mut d, &tcp(), None, &message(1, 0, T0, &[set(2, &hex("01 2c 00 00"))])).unwrap();
@@ -203,7 +203,7 @@ fn redefinition_replaces() {
         let out = decode(&mut d, &session, None, &message(1, 0, T0, &[t_a21()])).unwrap();
         assert!(out.learned.is_empty());
         assert_eq!(d.stats().templates_refreshed, 1);
-        // A different definition replaces it: "MUST replace" over UDP
+        // A different definition replaces it: MUST replace over UDP
         // (§8.4); over TCP it is an exporter fault (§8.1), counted.
         let out = decode(&mut d, &session, None, &message(1, 0, T0, &[t2.clone(), d2.clone()])).unwrap();
         assert_eq!(out.learned, [(1, 256, true)]);
@@ -247,7 +247,7 @@ fn templates_are_keyed_by_session_domain_and_id() {
 #[test]
 fn template_problems_are_rejected_and_counted() {
     let mut d = Decoder::new(Config::default());
-    // RFC 7011 §3.4.2.2: Scope Field Count "MUST NOT be zero".
+    // RFC 7011 §3.4.2.2: Scope Field Count MUST NOT be zero.
     let no_scope = set(3, &hex("01 02 00 01 00 00 00 8d 00 04"));
     // RFC 7011 §3.4.1: Template IDs 0-255 are not for templates.
     let reserved = set(2, &tpl(255, &[(8, 4)]));
@@ -394,7 +394,7 @@ fn reserved_set_ids_are_skipped_and_counted() {
 
 #[test]
 fn a_message_may_hold_no_sets() {
-    // RFC 7011 §3: "zero or more" Sets after the 16-octet header.
+    // RFC 7011 §3: zero or more Sets after the 16-octet header.
     let mut d = Decoder::new(Config::default());
     let out = decode(&mut d, &tcp(), None, &message(1, 0, T0, &[])).unwrap();
     assert!(out.records.is_empty() && out.skipped.is_empty());
@@ -402,7 +402,7 @@ fn a_message_may_hold_no_sets() {
 }
 
 // ---------------------------------------------------------------------------
-// Malformed messages (RFC 7011 §9.1: "MUST discard the whole message")
+// Malformed messages (RFC 7011 §9.1: the collector MUST discard the whole message)
 
 /// Decodes `good` first, then `bad`; checks the error, that nothing but the
 /// malformed counters changed, and that the next message still decodes.
@@ -654,7 +654,7 @@ fn one_field(ie: u16, len: u16, values: &str) -> Vec<OwnedValue> {
 
 #[test]
 fn boolean_two_is_false() {
-    // RFC 7011 §6.1.5: "true is encoded as 1 and false as 2"; other values
+    // RFC 7011 §6.1.5: true is 1, false is 2; other values
     // are undefined. dataRecordsReliability (276) is a boolean (IANA).
     assert_eq!(one_field(276, 1, "01 02 00"), [OwnedValue::Bool(true), OwnedValue::Bool(false), OwnedValue::Invalid(vec![0])]);
     let mut enc = MessageEncoder::new(ObservationDomainId(1));
@@ -684,7 +684,7 @@ fn reduced_size_signed_values_are_sign_extended() {
 #[test]
 fn date_time_encodings() {
     // RFC 7011 §6.1.9: dateTimeMicroseconds is an NTP timestamp whose low 11
-    // fraction bits "MUST be ignored"; §6.1.10: all bits count for
+    // fraction bits MUST be ignored; §6.1.10: all bits count for
     // nanoseconds. NTP seconds 0xE0000000 = 3,758,096,384; minus 2,208,988,800
     // = 1,549,107,584 s since 1970.
     let secs = 0xE000_0000i64 - NTP_UNIX_OFFSET;
@@ -700,7 +700,7 @@ fn date_time_encodings() {
     // §6.1.7: dateTimeSeconds (flowStartSeconds 150).
     assert_eq!(one_field(150, 4, "65 53 f1 00"), [OwnedValue::DateTime(DateTime { secs: 1_700_000_000, nanos: 0 })]);
 
-    // The encoder keeps the low 11 bits zero ("SHOULD be zero", §6.1.9).
+    // The encoder keeps the low 11 bits zero (§6.1.9: they SHOULD be zero).
     let mut enc = MessageEncoder::new(ObservationDomainId(1));
     enc.add_template(Template { id: TemplateId(256), scope_field_count: 0, fields: vec![FieldSpecifier::iana(154, 8)] }).unwrap();
     enc.push_record(TemplateId(256), &[OwnedValue::DateTime(DateTime { secs, nanos: 123_456_789 })]).unwrap();

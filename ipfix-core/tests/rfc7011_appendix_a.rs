@@ -429,7 +429,7 @@ fn a5_variable_length_forms() {
     let out = decode(&mut decoder, &TransportSession::file(0), None, &msg).unwrap();
     assert_eq!(values_of(&out, 300), std::slice::from_ref(&expected));
 
-    // RFC 7011 §7: the 3-octet form "may be used" for short values too.
+    // RFC 7011 §7: the 3-octet form may be used for short values too.
     let mut enc = MessageEncoder::new(ObservationDomainId(DOMAIN)).with_length_prefix(LengthPrefix::ThreeOctet);
     enc.add_template(template).unwrap();
     enc.push_record(TemplateId(300), &expected).unwrap();

@@ -12,7 +12,7 @@
 use std::net::{IpAddr, Ipv4Addr, Ipv6Addr};
 
 use super::network::{
-    self, behavior, loopback, prefix_sid, vrf, DomainKind, DomainSpec, Exporter, Role, EXPORTERS,
+    behavior, loopback, prefix_sid, vrf, DomainKind, DomainSpec, Exporter, Role, EXPORTERS,
     KESTREL_TO_DUNLIN_A, KESTREL_TO_DUNLIN_B, LABEL_TYPE_ISIS_SR, OSPREY_QUINCE_B, PEERS, POLICIES,
     QUINCE_METRO_POLICY,
 };
@@ -135,15 +135,21 @@ impl EpisodeTally {
 #[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
 pub(crate) struct Tally {
     pub records: u64,
+    /// Sampled packets and octets, as exported.
     pub packets: u64,
     pub octets: u64,
+    /// The same scaled by each record's 1-in-N rate.
+    pub packets_estimated: u64,
+    pub octets_estimated: u64,
 }
 
 impl Tally {
-    fn add(&mut self, flow: &Flow) {
+    fn add(&mut self, flow: &Flow, rate: u32) {
         self.records += 1;
         self.packets += flow.packets;
         self.octets += flow.octets;
+        self.packets_estimated += flow.packets.saturating_mul(u64::from(rate));
+        self.octets_estimated += flow.octets.saturating_mul(u64::from(rate));
     }
 }
 
@@ -191,13 +197,13 @@ fn episodes(timeline: &Timeline) -> Vec<Episode> {
     };
     vec![
         // 00:55:00-00:56:40: drained at 5 min into the window, converged 100 s later.
-        episode(EpisodeKind::CoreDrain, at(25 * 60_000), at(25 * 60_000 + 100_000), 1, 1201, 0.20),
+        episode(EpisodeKind::CoreDrain, at(25 * 60_000), at(25 * 60_000 + 100_000), 1, 1201, 0.25),
         // 01:02:00 on: line card 2 back in after the swap, policer on the wrong port.
         episode(EpisodeKind::Policer, at(32 * 60_000), timeline.end_ms, 0, 1102, 0.02),
         // 01:05:00 on: plover-m5 upgraded, one SID lost its behaviour.
         episode(EpisodeKind::Srv6Behavior, at(35 * 60_000), timeline.end_ms, 3, 1501, 0.01),
         // 01:22:00 on: ACL change on the peering edge, 12 minutes after the window.
-        episode(EpisodeKind::PeeringAcl, at(52 * 60_000), timeline.end_ms, 2, 1401, 0.025),
+        episode(EpisodeKind::PeeringAcl, at(52 * 60_000), timeline.end_ms, 2, 1401, 0.035),
     ]
 }
 
@@ -252,7 +258,8 @@ fn normal(rng: &mut fastrand::Rng) -> f64 {
     (-2.0 * u.ln()).sqrt() * (std::f64::consts::TAU * v).cos()
 }
 
-/// Picks an item by weight; `None` for an empty list.
+/// Picks an item by weight (items of weight 0 never); `None` when no
+/// item has a positive weight.
 fn pick_weighted<'a, T>(rng: &mut fastrand::Rng, items: &'a [T], weight: impl Fn(&T) -> f64) -> Option<&'a T> {
     let total: f64 = items.iter().map(&weight).sum();
     let mut r = rng.f64() * total;
@@ -262,7 +269,8 @@ fn pick_weighted<'a, T>(rng: &mut fastrand::Rng, items: &'a [T], weight: impl Fn
             return Some(item);
         }
     }
-    items.last()
+    // Rounding left a sliver: the last item that can be chosen.
+    items.iter().rev().find(|i| weight(i) > 0.0)
 }
 
 /// Picks an item uniformly; `None` for an empty list.
@@ -435,17 +443,18 @@ impl Generator {
             }
         }
         let r = self.rng.f64();
+        let rate = slot.exporter.sampling;
         // Congestion: a little everywhere, more on the core's busiest uplink.
-        let wred = if slot.spec.kind == DomainKind::Core && flow.out_if == 3 { 0.009 } else { 0.003 };
+        let wred = if slot.spec.kind == DomainKind::Core && flow.out_if == 3 { 0.006 } else { 0.002 };
         if r < wred && flow.out_if != 0 {
             flow.status = status::WRED;
-            self.truth.wred.add(flow);
+            self.truth.wred.add(flow, rate);
         } else if r > 1.0 - 0.0006 {
             flow.status = status::BAD_TTL;
-            self.truth.bad_ttl.add(flow);
+            self.truth.bad_ttl.add(flow, rate);
         } else {
             flow.status = status::FORWARDED;
-            self.truth.forwarded.add(flow);
+            self.truth.forwarded.add(flow, rate);
         }
     }
 
@@ -514,16 +523,17 @@ fn hop_of(exporter: &Exporter, index: u32) -> IpAddr {
 
 /// osprey-pe1: a customer port of `card` to the core or back.
 fn pe_flow(rng: &mut fastrand::Rng, exporter: &Exporter, card: u32, force: Force, flow: &mut Flow) {
-    let ports: Vec<&network::Interface> = exporter
-        .interfaces
-        .iter()
-        .filter(|i| i.index / 10 == card && matches!(i.role, Role::Customer { .. } | Role::Management))
-        .collect();
     let policer = force == Force::Episode(EpisodeKind::Policer);
     let port = if policer {
         exporter.interface(OSPREY_QUINCE_B)
     } else {
-        pick_weighted(rng, &ports, |i| if i.role == Role::Management { 0.05 } else { 1.0 }).copied()
+        // The customer ports of this card, management seldom.
+        pick_weighted(rng, exporter.interfaces, |i| match i.role {
+            _ if i.index / 10 != card => 0.0,
+            Role::Customer { .. } => 1.0,
+            Role::Management => 0.05,
+            _ => 0.0,
+        })
     };
     let Some(port) = port else { return };
     let vrf_id = match port.role {
@@ -588,8 +598,13 @@ fn core_flow(rng: &mut fastrand::Rng, exporter: &Exporter, drained: bool, force:
         _ if rng.bool() => KESTREL_TO_DUNLIN_A,
         _ => KESTREL_TO_DUNLIN_B,
     };
-    let inputs: Vec<u32> = [1, 3, 4, KESTREL_TO_DUNLIN_B].into_iter().filter(|i| *i != out_if).collect();
-    flow.in_if = pick(rng, &inputs).copied().unwrap_or(1);
+    // Any other core port (the drained one sends nothing in).
+    flow.in_if = loop {
+        let i = *pick(rng, &[1, 3, 4, KESTREL_TO_DUNLIN_B]).unwrap_or(&1);
+        if i != out_if {
+            break i;
+        }
+    };
     flow.out_if = out_if;
     flow.next_hop = hop_of(exporter, out_if);
     flow.bgp_next_hop = IpAddr::V4(loopback(dest));
@@ -597,18 +612,15 @@ fn core_flow(rng: &mut fastrand::Rng, exporter: &Exporter, drained: bool, force:
     // service label (none for global traffic to the peering edge); one in
     // ten stacks carries a repair segment on top.
     let service = if dest == 4 { None } else { pick(rng, &[101u32, 102, 103]).map(|v| vrf(*v)) };
-    let mut stack = Vec::with_capacity(3);
-    if rng.f64() < 0.1 && dest != 3 {
-        stack.push(prefix_sid(3));
+    let repair = rng.f64() < 0.1 && dest != 3;
+    let labels = [repair.then_some(prefix_sid(3)), Some(prefix_sid(dest)), service.map(|v| v.vpn_label)];
+    flow.labels = 0;
+    for label in labels.into_iter().flatten() {
+        if let Some(slot) = flow.label_stack.get_mut(usize::from(flow.labels)) {
+            *slot = label;
+            flow.labels += 1;
+        }
     }
-    stack.push(prefix_sid(dest));
-    if let Some(service) = service {
-        stack.push(service.vpn_label);
-    }
-    for (slot, label) in flow.label_stack.iter_mut().zip(&stack) {
-        *slot = *label;
-    }
-    flow.labels = u8::try_from(stack.len()).unwrap_or(0);
     flow.label_type = LABEL_TYPE_ISIS_SR;
     let v_site = service.map_or(0, |v| v.id);
     flow.src = site_host(rng, IpAddr::V4(Ipv4Addr::new(198, 51, 100, vrf(v_site).site_base)), false, v_site);

@@ -293,11 +293,20 @@ pub(crate) struct Counts {
     pub records: u64,
     pub packets_sampled: u64,
     pub octets_sampled: u64,
+    /// Scaled by each record's sampling rate (1000 or 500 by exporter).
+    pub packets_estimated: u64,
+    pub octets_estimated: u64,
 }
 
 impl From<Tally> for Counts {
     fn from(t: Tally) -> Self {
-        Self { records: t.records, packets_sampled: t.packets, octets_sampled: t.octets }
+        Self {
+            records: t.records,
+            packets_sampled: t.packets,
+            octets_sampled: t.octets,
+            packets_estimated: t.packets_estimated,
+            octets_estimated: t.octets_estimated,
+        }
     }
 }
 
@@ -410,7 +419,7 @@ pub(crate) fn build(config: &SynthConfig, generator: &Generator, domains: &[Doma
                 BackgroundDrops { why: reason(status::WRED), forwarding_status: status::WRED, class: "background", counts: truth.wred.into(), record_share: share(&truth.wred) },
                 BackgroundDrops { why: reason(status::BAD_TTL), forwarding_status: status::BAD_TTL, class: "background", counts: truth.bad_ttl.into(), record_share: share(&truth.bad_ttl) },
             ],
-            note: "WRED drops on every exporter (0.3% of flow records with an egress interface, 0.9% on kestrel-p2 0/3 toward the peering edge); bad-TTL drops on every exporter (0.06%)",
+            note: "WRED drops on every exporter (0.2% of flow records with an egress interface, 0.6% on kestrel-p2 0/3 toward the peering edge); bad-TTL drops on every exporter (0.06%)",
         },
         export_loss: loss
             .and_then(|l| {

@@ -49,7 +49,7 @@ pub enum Error {
     },
     /// A column requested by a dimension or the filter exists in no input
     /// and is not part of the Parquet contract.
-    #[error("no input has a column named `{name}` (and it is not a dimension short name)")]
+    #[error("no input has a column named `{name}`, and the flowsift Parquet contract lists none by that name")]
     UnknownColumn {
         /// The name as written.
         name: String,

@@ -256,3 +256,23 @@ fn sysuptime_exporter_times_resolve() {
     assert!(!ends.is_empty());
     assert!(ends.iter().all(|up| range.contains(&(init as u64 + up))));
 }
+
+#[test]
+fn committed_samples_are_current() {
+    // The samples in sample-captures/ are what scripts/regen-samples makes
+    // today; a generator change must come with regenerated samples.
+    let dir = Path::new(env!("CARGO_MANIFEST_DIR")).join("../sample-captures");
+    let script = std::fs::read_to_string(Path::new(env!("CARGO_MANIFEST_DIR")).join("../scripts/regen-samples")).unwrap();
+    let mut checked = 0;
+    for line in script.lines().filter(|l| l.starts_with("regional-carrier")) {
+        let [name, scenario, seed, records] = line.split_whitespace().collect::<Vec<_>>()[..] else { panic!("{line}") };
+        let (bytes, report) = run_to_vec(&["--scenario", scenario, "-o", name, "--seed", seed, "--records", records]);
+        let committed = std::fs::read(dir.join(name)).unwrap();
+        assert!(bytes == committed, "{name} differs from a fresh run: run scripts/regen-samples");
+        let truth = std::fs::read_to_string(dir.join(format!("{name}.truth.json"))).unwrap();
+        assert_eq!(truth, serde_json::to_string_pretty(&report.truth).unwrap() + "\n", "{name}.truth.json");
+        assert!(committed.len() <= 2_000_000, "{name} is over 2 MB");
+        checked += 1;
+    }
+    assert_eq!(checked, 4);
+}

@@ -209,6 +209,8 @@ pub struct StatsDocument<'a> {
     pub values: Values<'a>,
     /// What the options records taught the derived columns.
     pub enrichment: &'a ipfix_core::columnar::EnrichmentStats,
+    /// Wall-clock seconds per pass.
+    pub seconds: pipeline::PassSeconds,
 }
 
 /// The two tables.
@@ -238,6 +240,7 @@ pub fn stats_document(outcome: &ConvertOutcome) -> StatsDocument<'_> {
         accounting: &outcome.accounting,
         values: Values { flows: &outcome.flows_values, options: &outcome.options_values },
         enrichment: &outcome.enrichment,
+        seconds: outcome.seconds,
     }
 }
 
@@ -342,8 +345,11 @@ pub fn write_summary(out: &mut impl Write, o: &ConvertOutcome) -> std::io::Resul
     s += &line("packets not IPFIX", a.capture.packets_skipped(), reasons(&a.capture.packets_skipped_by_reason));
     let domains: usize = a.exporters.iter().map(|e| e.domains.len()).sum();
     s += &format!("  {} session(s), {} observation domain(s)\n", a.exporters.len(), domains);
+    let secs = o.seconds.templates + o.seconds.records;
+    let rate = if secs > 0.0 { a.records_decoded as f64 / secs } else { 0.0 };
+    s += &format!("  {secs:.1} s ({:.1} s templates, {:.1} s records), {:.0} records/s\n", o.seconds.templates, o.seconds.records, rate);
     s += &format!(
-        "wrote {} ({} rows, {} row groups, {}) and {} ({} rows)\n",
+        "wrote {} ({} rows, {} row group(s), {}) and {} ({} rows)\n",
         o.flows.path,
         thousands(o.flows.rows),
         o.flows.row_groups,

@@ -39,6 +39,9 @@ Examples:
   # Why are packets dropped? (grouped by reason, the default)
   flowsift drops exports/
 
+  # Straight from a capture: where (egress interface) and why
+  flowsift drops edge-export.pcapng --by out-if,reason
+
   # Which next hops drop most, and mainly why, in a maintenance window
   flowsift drops exports/ --by next-hop \\
       --from 2026-11-30T01:00:00Z --to 2026-11-30T03:00:00Z
@@ -78,7 +81,9 @@ pub enum Format {
 #[command(after_help = after_help())]
 pub struct DropsArgs {
     /// Parquet files, directories (searched recursively; key=value
-    /// directories become columns) or quoted glob patterns.
+    /// directories become columns) or quoted glob patterns; or captures
+    /// (pcap, pcapng, RFC 5655 IPFIX files, - for standard input), which are
+    /// decoded on the fly into a temporary Parquet file.
     #[arg(value_name = "INPUT", required = true)]
     pub inputs: Vec<String>,
 
@@ -125,17 +130,32 @@ pub struct DropsConfig {
     pub query: DropQuery,
     /// How to print it.
     pub format: Format,
+    /// Captures given as inputs, decoded into a temporary Parquet file
+    /// before the query runs.
+    pub captures: Vec<String>,
+    /// Where that temporary file goes; removed when the run ends.
+    pub scratch: Option<tempfile::TempDir>,
 }
 
 impl TryFrom<DropsArgs> for DropsConfig {
     type Error = anyhow::Error;
 
     fn try_from(args: DropsArgs) -> anyhow::Result<Self> {
-        let inputs = args
-            .inputs
-            .iter()
-            .map(|input| check_input(Path::new(input)))
-            .collect::<anyhow::Result<Vec<PathBuf>>>()?;
+        let mut inputs = Vec::new();
+        let mut captures = Vec::new();
+        for input in &args.inputs {
+            match check_input(input)? {
+                InputKind::Parquet(path) => inputs.push(path),
+                InputKind::Capture => captures.push(input.clone()),
+            }
+        }
+        let scratch = if captures.is_empty() {
+            None
+        } else {
+            let dir = tempfile::Builder::new().prefix("flowsift-drops-").tempdir().context("cannot create a temporary directory")?;
+            inputs.push(dir.path().join("captures.parquet"));
+            Some(dir)
+        };
         let by = Dimension::parse_list(&args.by).context("--by")?;
         let mut query = DropQuery::new(inputs)
             .with_by(by)
@@ -166,31 +186,72 @@ impl TryFrom<DropsArgs> for DropsConfig {
         Ok(DropsConfig {
             query,
             format: args.format,
+            captures,
+            scratch,
         })
     }
 }
 
-/// Rejects files that are not Parquet, naming the way forward for
-/// captures. Directories and globs are checked by the query.
-fn check_input(path: &Path) -> anyhow::Result<PathBuf> {
+/// What an input is.
+enum InputKind {
+    /// A Parquet file, directory or glob, read by the query.
+    Parquet(PathBuf),
+    /// A capture (pcap, pcapng, RFC 5655 file, or `-`), decoded first.
+    Capture,
+}
+
+/// Tells Parquet inputs from captures. Directories and globs are checked by
+/// the query; anything else that is not Parquet is sniffed as a capture when
+/// it is decoded (with errors naming what its first bytes look like).
+fn check_input(input: &str) -> anyhow::Result<InputKind> {
+    if input == "-" {
+        return Ok(InputKind::Capture);
+    }
+    let path = Path::new(input);
     if path.is_file() {
-        let parquet = flow_analytics::is_parquet(path)
-            .with_context(|| format!("{}: cannot read", path.display()))?;
+        let parquet = flow_analytics::is_parquet(path).with_context(|| format!("{}: cannot read", path.display()))?;
         if !parquet {
-            bail!(
-                "{}: not a Parquet file. Captures (pcap, pcapng, RFC 5655 IPFIX files) \
-                 are not read directly yet: convert them first with `flowsift convert`, \
-                 then run `flowsift drops` on the Parquet output",
-                path.display()
-            );
+            return Ok(InputKind::Capture);
         }
     }
-    Ok(path.to_path_buf())
+    Ok(InputKind::Parquet(path.to_path_buf()))
+}
+
+/// Decodes the capture inputs into one Parquet file in the scratch
+/// directory, as `flowsift convert` would (two passes, bounded memory).
+fn decode_captures(config: &DropsConfig) -> anyhow::Result<()> {
+    let Some(dir) = &config.scratch else { return Ok(()) };
+    let inputs = crate::pipeline::Inputs::open(&config.captures)?;
+    let flows = dir.path().join("captures.parquet");
+    let settings = crate::pipeline::ConvertSettings {
+        options: crate::pipeline::options_path_for(&flows),
+        flows,
+        sink: ipfix_core::columnar::SinkOptions::default().with_compression(ipfix_core::columnar::Compression::Snappy),
+        runner: crate::pipeline::Runner {
+            capture: crate::convert::capture_options(&[]),
+            ..crate::pipeline::Runner::default()
+        },
+    };
+    let progress = crate::pipeline::Progress::new(std::io::IsTerminal::is_terminal(&std::io::stderr()));
+    let outcome = crate::pipeline::convert(&inputs, &settings, &progress)?;
+    progress.finish();
+    let acc = &outcome.accounting;
+    eprintln!(
+        "note: decoded {} flow records from {} capture input(s); {} record(s) skipped, {} malformed message(s), \
+         {} record(s) missing by sequence numbers (run `flowsift convert` to keep the Parquet and see the full accounting)",
+        outcome.flows.rows,
+        config.captures.len(),
+        acc.records_skipped,
+        acc.messages_malformed,
+        acc.sequence_gap_records,
+    );
+    Ok(())
 }
 
 /// Runs `flowsift drops`.
 pub fn run(args: DropsArgs) -> anyhow::Result<ExitCode> {
     let config = DropsConfig::try_from(args)?;
+    decode_captures(&config)?;
     let table = config.query.run()?;
     let stdout = std::io::stdout();
     let mut out = BufWriter::new(stdout.lock());
@@ -243,13 +304,13 @@ mod tests {
     }
 
     #[test]
-    fn capture_input_points_to_convert() {
+    fn capture_inputs_are_decoded_first() {
         let dir = tempfile::tempdir().ok();
         let Some(dir) = dir else { return };
         let path = dir.path().join("export.pcap");
         assert!(std::fs::write(&path, [0xd4, 0xc3, 0xb2, 0xa1, 2, 0, 4, 0]).is_ok());
         let text = path.to_string_lossy().to_string();
-        let err = parse(&[text.as_str()]).err().map(|e| format!("{e:#}"));
-        assert!(err.is_some_and(|e| e.contains("flowsift convert")));
+        let config = parse(&[text.as_str()]);
+        assert!(config.as_ref().is_ok_and(|c| c.captures == [text.clone()] && c.scratch.is_some()), "{config:?}");
     }
 }

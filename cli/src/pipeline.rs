@@ -54,7 +54,7 @@ mod twopass;
 
 pub use accounting::{rfc3339, Accounting, BytesReport, CaptureReport, DomainReport, InputReport, SessionReport, TemplateReport};
 pub use progress::Progress;
-pub use twopass::{convert, options_path_for, ConvertOutcome, ConvertSettings, TableSummary};
+pub use twopass::{convert, options_path_for, ConvertOutcome, ConvertSettings, PassSeconds, TableSummary};
 
 /// The name standard input goes by in messages and reports.
 pub const STDIN_NAME: &str = "<stdin>";

@@ -19,6 +19,7 @@ use std::path::{Path, PathBuf};
 use std::sync::mpsc::{sync_channel, Receiver};
 use std::sync::Arc;
 use std::thread;
+use std::time::Instant;
 
 use anyhow::{anyhow, Context};
 use arrow::array::RecordBatch;
@@ -82,8 +83,20 @@ pub struct ConvertOutcome {
     pub enrichment: EnrichmentStats,
     /// Templates that went into the schemas (distinct definitions).
     pub schema_templates: usize,
+    /// Wall-clock seconds of each pass (pass 2 includes finishing the files).
+    pub seconds: PassSeconds,
     /// The accounting of pass 2 (the one that wrote the records).
     pub accounting: Accounting,
+}
+
+/// Wall-clock time of the two passes.
+#[derive(Debug, Clone, Copy, Serialize)]
+#[serde(rename_all = "camelCase")]
+pub struct PassSeconds {
+    /// Pass 1: templates and options records.
+    pub templates: f64,
+    /// Pass 2: records, compression, writing.
+    pub records: f64,
 }
 
 /// The options table's path for a flows table at `flows`:
@@ -100,6 +113,7 @@ pub fn convert(inputs: &Inputs, settings: &ConvertSettings, progress: &Progress)
     let runner = &settings.runner;
 
     // Pass 1: templates and options records.
+    let started = Instant::now();
     let mut plans: Vec<Arc<Plan>> = Vec::new();
     let mut seen: HashSet<Template> = HashSet::new();
     let mut enrichment = Enrichment::new();
@@ -120,6 +134,7 @@ pub fn convert(inputs: &Inputs, settings: &ConvertSettings, progress: &Progress)
     drop(plans);
 
     // Pass 2: records, with a writer thread.
+    let pass1 = started.elapsed().as_secs_f64();
     let flows_out = Output::create(&settings.flows)?;
     let options_out = Output::create(&settings.options)?;
     let flows_sink = ParquetSink::try_new(flows_out.writer()?, &flows_schema, settings.sink)?;
@@ -172,7 +187,9 @@ pub fn convert(inputs: &Inputs, settings: &ConvertSettings, progress: &Progress)
 
     let flows_summary = flows_out.finish(flows_w, flows_schema.columns().len())?;
     let options_summary = options_out.finish(options_w, options_schema.columns().len())?;
+    let seconds = PassSeconds { templates: pass1, records: started.elapsed().as_secs_f64() - pass1 };
     Ok(ConvertOutcome {
+        seconds,
         flows: flows_summary,
         options: options_summary,
         flows_values: flows.stats().clone(),

@@ -193,7 +193,7 @@ impl TryFrom<DropsArgs> for DropsConfig {
 }
 
 /// What an input is.
-enum InputKind {
+pub(crate) enum InputKind {
     /// A Parquet file, directory or glob, read by the query.
     Parquet(PathBuf),
     /// A capture (pcap, pcapng, RFC 5655 file, or `-`), decoded first.
@@ -203,7 +203,7 @@ enum InputKind {
 /// Tells Parquet inputs from captures. Directories and globs are checked by
 /// the query; anything else that is not Parquet is sniffed as a capture when
 /// it is decoded (with errors naming what its first bytes look like).
-fn check_input(input: &str) -> anyhow::Result<InputKind> {
+pub(crate) fn check_input(input: &str) -> anyhow::Result<InputKind> {
     if input == "-" {
         return Ok(InputKind::Capture);
     }
@@ -220,8 +220,14 @@ fn check_input(input: &str) -> anyhow::Result<InputKind> {
 /// Decodes the capture inputs into one Parquet file in the scratch
 /// directory, as `flowsift convert` would (two passes, bounded memory).
 fn decode_captures(config: &DropsConfig) -> anyhow::Result<()> {
-    let Some(dir) = &config.scratch else { return Ok(()) };
-    let inputs = crate::pipeline::Inputs::open(&config.captures)?;
+    decode_into(config.scratch.as_ref(), &config.captures)
+}
+
+/// Decodes `captures` into `captures.parquet` in `scratch` (nothing when
+/// `scratch` is `None`); shared with `compare`.
+pub(crate) fn decode_into(scratch: Option<&tempfile::TempDir>, captures: &[String]) -> anyhow::Result<()> {
+    let Some(dir) = scratch else { return Ok(()) };
+    let inputs = crate::pipeline::Inputs::open(captures)?;
     let flows = dir.path().join("captures.parquet");
     let settings = crate::pipeline::ConvertSettings {
         options: crate::pipeline::options_path_for(&flows),
@@ -240,7 +246,7 @@ fn decode_captures(config: &DropsConfig) -> anyhow::Result<()> {
         "note: decoded {} flow records from {} capture input(s); {} record(s) skipped, {} malformed message(s), \
          {} record(s) missing by sequence numbers (run `flowsift convert` to keep the Parquet and see the full accounting)",
         outcome.flows.rows,
-        config.captures.len(),
+        captures.len(),
         acc.records_skipped,
         acc.messages_malformed,
         acc.sequence_gap_records,

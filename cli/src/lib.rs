@@ -9,6 +9,7 @@ use std::process::ExitCode;
 
 use clap::{Parser, Subcommand};
 
+pub mod compare;
 pub mod convert;
 pub mod drops;
 pub mod synth;
@@ -32,6 +33,8 @@ pub struct Cli {
 pub enum Command {
     /// Drop figures grouped by where (next hop, interface, labels, segments, peer AS, VRF) and why.
     Drops(drops::DropsArgs),
+    /// Drops before, during and after a maintenance window: what changed, where, and did it settle.
+    Compare(compare::CompareArgs),
     /// Synthetic IPFIX captures of invented scenarios, with their ground truth.
     Synth(synth::SynthArgs),
     /// Convert captures (pcap, pcapng, RFC 5655 IPFIX files) to Parquet, with an exact account of what was decoded, skipped and lost.
@@ -46,6 +49,7 @@ pub fn run_main() -> ExitCode {
     let cli = Cli::parse();
     let result = match cli.command {
         Command::Drops(args) => drops::run(args),
+        Command::Compare(args) => compare::run(args),
         Command::Synth(args) => synth::run(args),
         Command::Convert(args) => convert::run(args),
         Command::Inspect(args) => inspect::run(args),

@@ -127,6 +127,12 @@ pub enum Error {
         /// The name as written.
         name: String,
     },
+    /// A comparison's window, spans or thresholds are unusable.
+    #[error("compare: {reason}")]
+    BadCompare {
+        /// What is wrong.
+        reason: String,
+    },
     /// Polars failed while planning or running the query.
     #[error("query failed: {0}")]
     Polars(Arc<polars::prelude::PolarsError>),

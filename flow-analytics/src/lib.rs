@@ -67,12 +67,14 @@
 #![warn(missing_docs)]
 #![forbid(unsafe_code)]
 
+pub mod compare;
 mod contract;
 mod dimension;
 mod error;
 mod input;
 mod query;
 pub mod render;
+pub mod report;
 mod table;
 
 pub use chrono::{DateTime, Utc};

@@ -98,6 +98,8 @@ const W_VAR: &str = "_fs_var";
 const W_KNOWN: &str = "_fs_known";
 const W_TIME: &str = "_fs_time";
 const A_SAMPLED: &str = "_fs_sampled";
+const A_SAMPLED_TOTAL: &str = "_fs_sampled_total";
+const W_T: &str = "_fs_t";
 const A_MAX_RATE: &str = "_fs_max_rate";
 const A_FIRST: &str = "_fs_first";
 const A_LAST: &str = "_fs_last";
@@ -272,21 +274,7 @@ impl DropQuery {
             reason_is_key,
         } = prepared;
         let bucketed = self.every.is_some();
-        // The streaming engine reads the Parquet row groups in batches and
-        // aggregates as it goes, so memory follows the number of groups,
-        // not the number of records.
-        let stage1 = match stage1.collect_with_engine(Engine::Streaming)? {
-            QueryResult::Single(frame) => frame,
-            QueryResult::Multiple(mut frames) => match frames.pop() {
-                Some(frame) if frames.is_empty() => frame,
-                _ => {
-                    return Err(PolarsError::ComputeError(
-                        "streaming engine returned several results for one query".into(),
-                    )
-                    .into())
-                }
-            },
-        };
+        let stage1 = collect_streaming(stage1)?;
 
         // Stage 2: merge reasons into groups, naming the top reason.
         let mut out_keys: Vec<String> = Vec::new();
@@ -495,6 +483,52 @@ impl DropQuery {
     }
 }
 
+/// Collects a plan with the streaming engine: it reads the Parquet row
+/// groups in batches and aggregates as it goes, so memory follows the
+/// number of groups, not the number of records.
+fn collect_streaming(plan: LazyFrame) -> Result<DataFrame, Error> {
+    match plan.collect_with_engine(Engine::Streaming)? {
+        QueryResult::Single(frame) => Ok(frame),
+        QueryResult::Multiple(mut frames) => match frames.pop() {
+            Some(frame) if frames.is_empty() => Ok(frame),
+            _ => Err(PolarsError::ComputeError(
+                "streaming engine returned several results for one query".into(),
+            )
+            .into()),
+        },
+    }
+}
+
+/// Stage-1 rows of a query, for analyses built on the same measures
+/// (`compare`): one row per bucket, dimension keys and reason, with
+/// `droppedPackets`, `totalPackets` (scaled), [`SAMPLED_DROPPED`] and
+/// [`SAMPLED_TOTAL`] (as selected, unscaled).
+pub(crate) struct Stage1Rows {
+    /// The rows.
+    pub frame: DataFrame,
+    /// The dimensions' plans, in `by` order.
+    pub plans: Vec<DimensionPlan>,
+    /// Whether `forwardingReason` is one of the dimension keys.
+    pub reason_is_key: bool,
+}
+
+/// Sampled (unscaled) dropped packets in a stage-1 row.
+pub(crate) const SAMPLED_DROPPED: &str = A_SAMPLED;
+/// Sampled (unscaled) total packets in a stage-1 row.
+pub(crate) const SAMPLED_TOTAL: &str = A_SAMPLED_TOTAL;
+
+impl DropQuery {
+    /// Runs stage 1 only (see [`Stage1Rows`]).
+    pub(crate) fn stage1_rows(&self) -> Result<Stage1Rows, Error> {
+        let prepared = self.prepare()?;
+        Ok(Stage1Rows {
+            frame: collect_streaming(prepared.stage1)?,
+            plans: prepared.plans,
+            reason_is_key: prepared.reason_is_key,
+        })
+    }
+}
+
 /// A query ready to collect.
 struct Prepared {
     /// Records grouped by bucket, dimension keys and reason.
@@ -561,6 +595,7 @@ fn record_measures(record_time: Expr) -> Vec<Expr> {
     vec![
         n.clone().alias(W_N),
         kp.clone().alias(W_K),
+        tp.clone().alias(W_T),
         (kp.clone() * n.clone()).alias(W_DP),
         (ko * n.clone()).alias(W_DO),
         (tp * n.clone()).alias(W_TP),
@@ -581,6 +616,7 @@ fn stage1_aggs() -> Vec<Expr> {
         col(W_TO).sum().alias(TOTAL_OCTETS),
         len().cast(DataType::UInt64).alias(FLOW_RECORDS),
         col(W_K).sum().alias(A_SAMPLED),
+        col(W_T).sum().alias(A_SAMPLED_TOTAL),
         col(W_VAR).sum().alias(W_VAR),
         col(W_KNOWN).sum().alias(W_KNOWN),
         col(W_N).max().alias(A_MAX_RATE),

@@ -47,6 +47,8 @@ pub(crate) struct Truth {
     pub generator: String,
     pub time_range: Span,
     pub maintenance_window: Window,
+    /// 1-in-N packet sampling of each exporter (details under `network`).
+    pub sampling_rates: Vec<SamplingRate>,
     /// What each expected class means.
     pub classes: Classes,
     pub records: Records,
@@ -79,6 +81,16 @@ pub(crate) struct Window {
     #[serde(flatten)]
     pub span: Span,
     pub work: Vec<&'static str>,
+}
+
+/// One exporter's sampling rate.
+#[derive(Debug, Clone, Serialize)]
+#[serde(rename_all = "camelCase")]
+pub(crate) struct SamplingRate {
+    pub exporter: &'static str,
+    pub address: String,
+    pub observation_domain_ids: Vec<u32>,
+    pub rate: u32,
 }
 
 /// Meaning of the classes.
@@ -398,6 +410,15 @@ pub(crate) fn build(config: &SynthConfig, generator: &Generator, domains: &[Doma
                 "software upgrade of plover-m5",
             ],
         },
+        sampling_rates: EXPORTERS
+            .iter()
+            .map(|e| SamplingRate {
+                exporter: e.name,
+                address: e.address.to_string(),
+                observation_domain_ids: e.domains.iter().map(|d| d.id).collect(),
+                rate: e.sampling,
+            })
+            .collect(),
         classes: Classes {
             transient: "starts inside the maintenance window and stops before it ends (converged)",
             persistent: "starts inside the maintenance window and is still dropping after it",

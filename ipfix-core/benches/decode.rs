@@ -146,6 +146,19 @@ struct Columns {
     list_items: Vec<u128>,
 }
 
+impl Columns {
+    fn with_capacity(records: usize) -> Self {
+        Self {
+            ints: Vec::with_capacity(records * 12),
+            addrs4: Vec::with_capacity(records * 4),
+            addrs6: Vec::with_capacity(records * 3),
+            times: Vec::with_capacity(records * 2),
+            bytes: Vec::with_capacity(records * 6),
+            list_items: Vec::with_capacity(records * 3),
+        }
+    }
+}
+
 fn decode_into_columns(w: &Workload, cols: &mut Columns) -> u64 {
     let mut decoder = Decoder::new(Config::default());
     let session = TransportSession::udp("192.0.2.1:50000".parse().unwrap(), "198.51.100.1:4739".parse().unwrap());
@@ -192,7 +205,7 @@ fn bench(c: &mut Criterion) {
         g.bench_function("byte-sum-baseline", |b| b.iter(|| black_box(byte_sum(black_box(&w)))));
         g.bench_function("decode-to-columns", |b| {
             b.iter(|| {
-                let mut cols = Columns::default();
+                let mut cols = Columns::with_capacity(w.records as usize);
                 let n = decode_into_columns(black_box(&w), &mut cols);
                 assert_eq!(n, w.records);
                 black_box(cols.ints.len())
@@ -207,8 +220,50 @@ fn bench(c: &mut Criterion) {
 
 #[cfg(feature = "columnar")]
 mod columnar {
-    //! Filled in with the Arrow builders once `ipfix_core::columnar` lands.
-    pub fn bench_arrow(_g: &mut criterion::BenchmarkGroup<'_, criterion::measurement::WallTime>, _w: &super::Workload) {}
+    //! The same messages decoded and appended to the Arrow builders of the
+    //! Parquet writer (`ipfix_core::columnar::TableBuilder`), the way
+    //! `flowsift convert` does it, one batch per 128k rows.
+    use std::hint::black_box;
+    use std::sync::Arc;
+    use std::time::Duration;
+
+    use criterion::measurement::WallTime;
+    use criterion::BenchmarkGroup;
+    use ipfix_core::columnar::{Enrichment, TableBuilder, TableSchema};
+    use ipfix_core::{Config, Decoder, Event, TransportSession};
+
+    pub fn bench_arrow(g: &mut BenchmarkGroup<'_, WallTime>, w: &super::Workload) {
+        let session = TransportSession::udp("192.0.2.1:50000".parse().unwrap(), "198.51.100.1:4739".parse().unwrap());
+        let now = Some(Duration::from_secs(1_764_633_600));
+        let mut plans = Vec::new();
+        let mut d = Decoder::new(Config::default());
+        for ev in d.decode(&session, now, &w.messages[0]).unwrap() {
+            if let Event::TemplateLearned { plan, .. } = ev {
+                plans.push(plan);
+            }
+        }
+        let schema = Arc::new(TableSchema::flows(plans.iter().map(|p| &**p)));
+        let enrichment = Enrichment::new();
+        g.bench_function("decode-to-arrow-builders", |b| {
+            b.iter(|| {
+                let mut decoder = Decoder::new(Config::default());
+                let mut builder = TableBuilder::new(schema.clone(), 128 * 1024);
+                let mut rows = 0usize;
+                for m in &w.messages {
+                    for ev in decoder.decode(&session, now, m).unwrap() {
+                        if let Event::Data(set) = ev {
+                            rows += builder.append(&set, &enrichment);
+                            if builder.len() >= 128 * 1024 {
+                                black_box(builder.finish().unwrap());
+                            }
+                        }
+                    }
+                }
+                black_box(builder.finish().unwrap());
+                assert_eq!(rows as u64, w.records);
+            })
+        });
+    }
 }
 
 criterion_group!(benches, bench);

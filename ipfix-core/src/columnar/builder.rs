@@ -1,7 +1,6 @@
 //! Typed column builders and the table builder that appends Data Sets.
 
 use std::any::Any;
-use std::collections::HashMap;
 use std::fmt::Write as _;
 use std::net::Ipv6Addr;
 use std::sync::Arc;
@@ -14,8 +13,8 @@ use arrow::array::{
 };
 use arrow::datatypes::{DataType as ArrowType, Field, TimeUnit};
 
-use super::derive::{be_uint, DerivedPlan, DerivedRow, SetContext};
-use super::enrich::Enrichment;
+use super::derive::{be_uint, group, DerivedPlan, DerivedRow, SetContext};
+use super::enrich::{Enrichment, IdMap};
 use super::schema::{
     column_name, element_type, name_value_fields, record_struct_fields, write_field_name, ColumnRole, TableKind,
     TableSchema,
@@ -77,6 +76,35 @@ fn ntp(raw: &[u8], micro: bool) -> Option<DateTime> {
     Some(DateTime::from_ntp(u32::from_be_bytes(*s), u32::from_be_bytes(*f), micro))
 }
 
+/// Text of recently seen IPv4 addresses: flows repeat addresses, and a
+/// cache hit costs a compare and a copy instead of formatting.
+#[derive(Debug)]
+pub(crate) struct Ipv4Texts {
+    /// (address, text); an empty text marks a vacant slot.
+    slots: Vec<(u32, String)>,
+}
+
+impl Ipv4Texts {
+    const SLOTS: usize = 4096;
+
+    pub(crate) fn new() -> Self {
+        Self { slots: vec![(0, String::new()); Self::SLOTS] }
+    }
+
+    fn text(&mut self, a: [u8; 4]) -> &str {
+        let key = u32::from_be_bytes(a);
+        // Multiplicative hash, top 12 bits.
+        let i = (key.wrapping_mul(0x9E37_79B1) >> 20) as usize;
+        let Some(slot) = self.slots.get_mut(i) else { return "" };
+        if slot.0 != key || slot.1.is_empty() {
+            slot.0 = key;
+            slot.1.clear();
+            let _ = write_ipv4(a, &mut slot.1);
+        }
+        &slot.1
+    }
+}
+
 macro_rules! append_or_null {
     ($b:expr, $v:expr, $stats:expr, $counter:ident) => {
         match $v {
@@ -104,8 +132,8 @@ impl Scalar {
             ArrowType::Float32 => Self::F32(Float32Builder::with_capacity(capacity)),
             ArrowType::Float64 => Self::F64(Float64Builder::with_capacity(capacity)),
             ArrowType::Boolean => Self::Bool(BooleanBuilder::with_capacity(capacity)),
-            ArrowType::Utf8 => Self::Utf8(StringBuilder::with_capacity(capacity, capacity * 8)),
-            ArrowType::Binary => Self::Binary(BinaryBuilder::with_capacity(capacity, capacity * 4)),
+            ArrowType::Utf8 => Self::Utf8(StringBuilder::with_capacity(capacity, capacity.saturating_mul(16))),
+            ArrowType::Binary => Self::Binary(BinaryBuilder::with_capacity(capacity, capacity.saturating_mul(8))),
             ArrowType::FixedSizeBinary(w) => Self::Fsb(FixedSizeBinaryBuilder::with_capacity(capacity, *w)),
             ArrowType::Timestamp(TimeUnit::Second, _) => {
                 Self::TsS(TimestampSecondBuilder::with_capacity(capacity).with_timezone(tz))
@@ -195,7 +223,7 @@ impl Scalar {
     /// Appends a field's octets decoded by `decode` (the hot path: no
     /// [`Value`], no allocation). The plan guarantees the octets fit the
     /// column's type; anything else is written as null and counted.
-    fn append_raw(&mut self, decode: Decode, raw: &[u8], stats: &mut ColumnarStats) {
+    fn append_raw(&mut self, decode: Decode, raw: &[u8], stats: &mut ColumnarStats, v4: &mut Ipv4Texts) {
         match self {
             Self::U8(b) => append_or_null!(b, u8::try_from(be_uint(raw)).ok(), stats, values_null_invalid),
             Self::U16(b) => append_or_null!(b, u16::try_from(be_uint(raw)).ok(), stats, values_null_invalid),
@@ -244,10 +272,7 @@ impl Scalar {
                     None => null_invalid(b, stats),
                 },
                 Decode::Ipv4Address => match raw.first_chunk::<4>().filter(|_| raw.len() == 4) {
-                    Some(a) => {
-                        let _ = write_ipv4(*a, b);
-                        b.append_value("");
-                    }
+                    Some(a) => b.append_value(v4.text(*a)),
                     None => null_invalid(b, stats),
                 },
                 Decode::Ipv6Address => match raw.first_chunk::<16>().filter(|_| raw.len() == 16) {
@@ -356,9 +381,15 @@ impl Scalar {
                 b.append_value(x);
                 true
             }
-            (Self::Fsb(_), Value::Unsigned256(x)) => {
-                self.append_raw(Decode::Unsigned256, x, stats);
-                true
+            (Self::Fsb(b), Value::Unsigned256(x)) => {
+                let mut wide = [0u8; 32];
+                match wide.get_mut(32usize.saturating_sub(x.len())..) {
+                    Some(dst) if dst.len() == x.len() => {
+                        dst.copy_from_slice(x);
+                        b.append_value(wide).is_ok()
+                    }
+                    _ => false,
+                }
             }
             (Self::TsS(b), Value::DateTime(t)) => {
                 b.append_value(t.secs);
@@ -554,6 +585,9 @@ struct PlanMap {
     /// Options table: the scope column names of this plan.
     scope_names: Vec<String>,
     has_lists: bool,
+    /// (start, end) of every field when all are fixed-length and there are
+    /// no lists: records are then sliced without walking.
+    layout: Option<Vec<(usize, usize)>>,
 }
 
 /// Column positions that do not depend on the plan.
@@ -579,12 +613,16 @@ pub struct TableBuilder {
     schema: Arc<TableSchema>,
     columns: Vec<Column>,
     fixed: Fixed,
-    plans: HashMap<usize, (Arc<Plan>, Arc<PlanMap>)>,
+    plans: IdMap<usize, (Arc<Plan>, Arc<PlanMap>)>,
+    /// The plan of the previous set: most sets repeat it.
+    last: Option<(Arc<Plan>, Arc<PlanMap>)>,
+    capacity: usize,
     rows: usize,
     stats: ColumnarStats,
     spans: Vec<Option<(usize, usize)>>,
     labels: Vec<u32>,
     text: String,
+    v4: Ipv4Texts,
 }
 
 /// Most plans kept in the mapping cache; past it the cache is cleared
@@ -621,12 +659,15 @@ impl TableBuilder {
             schema,
             columns,
             fixed,
-            plans: HashMap::new(),
+            plans: IdMap::default(),
+            last: None,
+            capacity,
             rows: 0,
             stats: ColumnarStats::default(),
             spans: Vec::new(),
             labels: Vec::new(),
             text: String::new(),
+            v4: Ipv4Texts::new(),
         }
     }
 
@@ -690,13 +731,28 @@ impl TableBuilder {
         let has_lists = slots
             .iter()
             .any(|s| matches!(s.decode, Decode::BasicList | Decode::SubTemplateList | Decode::SubTemplateMultiList));
-        PlanMap { slots, absent, derived, scope_names, has_lists }
+        let layout = match (plan.fixed_len(), has_lists) {
+            (Some(_), false) => plan
+                .fields()
+                .iter()
+                .map(|f| f.offset.map(|o| (o, o + usize::from(f.spec.length))))
+                .collect::<Option<Vec<_>>>(),
+            _ => None,
+        };
+        PlanMap { slots, absent, derived, scope_names, has_lists, layout }
     }
 
     fn plan_map(&mut self, plan: &Arc<Plan>) -> Arc<PlanMap> {
+        if let Some((p, map)) = &self.last {
+            if Arc::ptr_eq(p, plan) {
+                return map.clone();
+            }
+        }
         let key = Arc::as_ptr(plan) as usize;
         if let Some((_, map)) = self.plans.get(&key) {
-            return map.clone();
+            let map = map.clone();
+            self.last = Some((plan.clone(), map.clone()));
+            return map;
         }
         if self.plans.len() >= MAX_CACHED_PLANS {
             self.plans.clear();
@@ -704,6 +760,7 @@ impl TableBuilder {
         let map = Arc::new(self.map_plan(plan));
         // The Arc<Plan> is kept so the pointer cannot be reused by another plan.
         self.plans.insert(key, (plan.clone(), map.clone()));
+        self.last = Some((plan.clone(), map.clone()));
         map
     }
 
@@ -727,11 +784,18 @@ impl TableBuilder {
         let domain = set.domain().0;
         let export_time = set.export_time();
         let ctx = SetContext::new(export_time, enrichment.domain(exporter, domain));
+        let groups = match self.fixed.derived {
+            Some(_) => map.derived.per_record(&ctx),
+            None => 0,
+        };
 
         let mut n = 0usize;
         for record in set.records() {
-            self.append_record(&map, &record, &ctx);
+            self.append_record(&map, &record, &ctx, groups);
             n += 1;
+        }
+        if let Some(base) = self.fixed.derived {
+            self.append_constant_derived(base, groups, &ctx, n);
         }
 
         // Provenance and absent columns, in bulk.
@@ -776,9 +840,21 @@ impl TableBuilder {
         n
     }
 
-    fn append_record(&mut self, map: &PlanMap, record: &Record<'_>, ctx: &SetContext<'_>) {
+    fn append_record(&mut self, map: &PlanMap, record: &Record<'_>, ctx: &SetContext<'_>, groups: u8) {
         let data = record.bytes();
         let fields = record.plan().fields();
+        if let Some(layout) = map.layout.as_deref().filter(|_| data.len() == record.plan().fixed_len().unwrap_or(0)) {
+            // Fixed layout: every field at a known place.
+            for ((slot, field), (s, e)) in map.slots.iter().zip(fields).zip(layout) {
+                self.put(map, record, 0, *slot, field.length_mismatch, data.get(*s..*e));
+            }
+            if let Some(base) = self.fixed.derived.filter(|_| groups != 0) {
+                let raw = |i: usize| layout.get(i).and_then(|(s, e)| data.get(*s..*e));
+                let row = map.derived.compute(groups, raw, ctx, &mut self.labels, &mut self.stats);
+                self.append_derived(base, &row, groups);
+            }
+            return;
+        }
         self.spans.clear();
         let mut pos = 0usize;
         let mut ok = true;
@@ -790,71 +866,118 @@ impl TableBuilder {
                 data.get(s..e)
             });
             ok &= raw.is_some();
-            if slot.column == UNPLACED {
-                self.stats.values_unplaced += 1;
-                continue;
-            }
-            if field.length_mismatch {
-                self.stats.values_octets_fallback += 1;
-            }
-            let Some(col) = self.columns.get_mut(slot.column) else { continue };
-            match (col, raw) {
-                (Column::Scalar(s), Some(raw)) => s.append_raw(slot.decode, raw, &mut self.stats),
-                (col @ (Column::List(_) | Column::Records(_)), Some(_)) if map.has_lists => match record.value(i) {
-                    Some(v) => col.append_list(&v, &mut self.stats),
-                    None => {
-                        col.append_nulls(1);
-                        self.stats.values_null_invalid += 1;
-                    }
-                },
-                (col, _) => {
-                    // Only a caller-built record can be shorter than its plan.
+            self.put(map, record, i, *slot, field.length_mismatch, raw);
+        }
+        let Some(base) = self.fixed.derived.filter(|_| groups != 0) else { return };
+        let spans = std::mem::take(&mut self.spans);
+        let raw = |i: usize| spans.get(i).copied().flatten().and_then(|(s, e)| data.get(s..e));
+        let row = map.derived.compute(groups, raw, ctx, &mut self.labels, &mut self.stats);
+        self.append_derived(base, &row, groups);
+        self.spans = spans;
+    }
+
+    /// Appends one field's value (`raw`: its octets; `None` only for a
+    /// record shorter than its plan) to its column.
+    #[inline]
+    fn put(&mut self, map: &PlanMap, record: &Record<'_>, index: usize, slot: Slot, mismatch: bool, raw: Option<&[u8]>) {
+        if slot.column == UNPLACED {
+            self.stats.values_unplaced += 1;
+            return;
+        }
+        if mismatch {
+            self.stats.values_octets_fallback += 1;
+        }
+        let Some(col) = self.columns.get_mut(slot.column) else { return };
+        match (col, raw) {
+            (Column::Scalar(s), Some(raw)) => s.append_raw(slot.decode, raw, &mut self.stats, &mut self.v4),
+            (col @ (Column::List(_) | Column::Records(_)), Some(_)) if map.has_lists => match record.value(index) {
+                Some(v) => col.append_list(&v, &mut self.stats),
+                None => {
                     col.append_nulls(1);
                     self.stats.values_null_invalid += 1;
                 }
+            },
+            (col, _) => {
+                // Only a caller-built record can be shorter than its plan.
+                col.append_nulls(1);
+                self.stats.values_null_invalid += 1;
             }
         }
-        let Some(base) = self.fixed.derived else { return };
-        let spans = &self.spans;
-        let raw = |i: usize| spans.get(i).copied().flatten().and_then(|(s, e)| data.get(s..e));
-        let row = map.derived.compute(raw, ctx, &mut self.labels, &mut self.stats);
-        self.append_derived(base, &row);
     }
 
-    fn append_derived(&mut self, base: usize, row: &DerivedRow<'_>) {
+    /// Appends the derived columns of the groups that vary per record.
+    fn append_derived(&mut self, base: usize, row: &DerivedRow<'_>, groups: u8) {
         let Some(cols) = self.columns.get_mut(base..) else { return };
-        let mut it = cols.iter_mut();
         let utf8 = |c: Option<&mut Column>, v: Option<&str>| {
             if let Some(Column::Scalar(Scalar::Utf8(b))) = c {
                 b.append_option(v);
             }
         };
-        // Order: DerivedColumn::ALL.
-        utf8(it.next(), row.outcome);
-        utf8(it.next(), row.reason);
-        if let Some(Column::List(l)) = it.next() {
-            if row.labels {
-                if let Scalar::U32(items) = l.values() {
-                    items.append_slice(&self.labels);
+        // Offsets: DerivedColumn::ALL order (see `group::COLUMNS`).
+        if groups & group::FWD != 0 {
+            let (a, b) = cols.split_at_mut(1);
+            utf8(a.first_mut(), row.outcome);
+            utf8(b.first_mut(), row.reason);
+        }
+        if groups & group::MPLS != 0 {
+            if let Some(Column::List(l)) = cols.get_mut(2) {
+                if row.labels {
+                    if let Scalar::U32(items) = l.values() {
+                        items.append_slice(&self.labels);
+                    }
+                    l.append(true);
+                } else {
+                    l.append_null();
                 }
-                l.append(true);
-            } else {
-                l.append_null();
             }
         }
-        for v in [row.start_ns, row.end_ns] {
-            if let Some(Column::Scalar(Scalar::TsNs(b))) = it.next() {
-                b.append_option(v);
+        for (g, i, v) in [(group::START, 3, row.start_ns), (group::END, 4, row.end_ns)] {
+            if groups & g != 0 {
+                if let Some(Column::Scalar(Scalar::TsNs(b))) = cols.get_mut(i) {
+                    b.append_option(v);
+                }
             }
         }
-        if let Some(Column::Scalar(Scalar::U32(b))) = it.next() {
-            b.append_option(row.rate);
+        if groups & group::RATE != 0 {
+            if let Some(Column::Scalar(Scalar::U32(b))) = cols.get_mut(5) {
+                b.append_option(row.rate);
+            }
         }
-        utf8(it.next(), row.ingress_name);
-        utf8(it.next(), row.egress_name);
-        utf8(it.next(), row.ingress_vrf);
-        utf8(it.next(), row.egress_vrf);
-        utf8(it.next(), row.srh);
+        for (g, i, v) in [
+            (group::IFACE, 6, row.ingress_name),
+            (group::IFACE, 7, row.egress_name),
+            (group::VRF, 8, row.ingress_vrf),
+            (group::VRF, 9, row.egress_vrf),
+            (group::SRH, 10, row.srh),
+        ] {
+            if groups & g != 0 {
+                utf8(cols.get_mut(i), v);
+            }
+        }
+    }
+
+    /// Appends, for `n` rows at once, the derived columns whose value is
+    /// the same for the whole set: null, or the set's sampling rate.
+    fn append_constant_derived(&mut self, base: usize, groups: u8, ctx: &SetContext<'_>, n: usize) {
+        for (g, offset, count) in group::COLUMNS {
+            if groups & g != 0 {
+                continue;
+            }
+            for i in base + offset..base + offset + count {
+                let Some(col) = self.columns.get_mut(i) else { continue };
+                match (g, col) {
+                    (group::RATE, Column::Scalar(Scalar::U32(b))) => match ctx.fallback_rate {
+                        Ok(Some(rate)) => b.append_value_n(rate, n),
+                        Ok(None) => b.append_nulls(n),
+                        Err(()) => {
+                            b.append_nulls(n);
+                            self.stats.sampling_unresolved += n as u64;
+                        }
+                    },
+                    (_, col) => col.append_nulls(n),
+                }
+            }
+        }
     }
 
     /// Finishes the rows appended so far into a batch and starts afresh
@@ -862,6 +985,15 @@ impl TableBuilder {
     pub fn finish(&mut self) -> Result<RecordBatch, ColumnarError> {
         debug_assert!(self.columns_in_step(), "every column holds one value per row");
         let arrays: Vec<ArrayRef> = self.columns.iter_mut().map(Column::finish).collect();
+        // The arrays took the buffers; start the next batch at full capacity
+        // rather than growing from empty again.
+        if self.rows > 0 {
+            for (col, spec) in self.columns.iter_mut().zip(self.schema.columns()) {
+                if let Some(fresh) = Column::new(&spec.data_type, self.capacity) {
+                    *col = fresh;
+                }
+            }
+        }
         self.rows = 0;
         Ok(RecordBatch::try_new(self.schema.arrow_schema().clone(), arrays)?)
     }

@@ -229,6 +229,48 @@ impl DerivedPlan {
     }
 }
 
+/// Groups of derived columns, as bits: a group's columns are computed per
+/// record only when the plan (and the set's enrichment) can give a value;
+/// otherwise they are constant for the whole set and appended in bulk.
+pub(crate) mod group {
+    /// forwardingOutcome, forwardingReason.
+    pub const FWD: u8 = 1 << 0;
+    /// mplsLabelStack.
+    pub const MPLS: u8 = 1 << 1;
+    /// flowStartTime.
+    pub const START: u8 = 1 << 2;
+    /// flowEndTime.
+    pub const END: u8 = 1 << 3;
+    /// samplingRate.
+    pub const RATE: u8 = 1 << 4;
+    /// ingress/egressInterfaceName.
+    pub const IFACE: u8 = 1 << 5;
+    /// ingress/egressVRFname.
+    pub const VRF: u8 = 1 << 6;
+    /// srhEndpointBehaviorName.
+    pub const SRH: u8 = 1 << 7;
+    /// (group, first column offset from the first derived column, columns).
+    pub const COLUMNS: [(u8, usize, usize); 8] =
+        [(FWD, 0, 2), (MPLS, 2, 1), (START, 3, 1), (END, 4, 1), (RATE, 5, 1), (IFACE, 6, 2), (VRF, 8, 2), (SRH, 10, 1)];
+}
+
+impl DerivedPlan {
+    /// The groups whose values vary per record for this plan and set.
+    pub(crate) fn per_record(&self, ctx: &SetContext<'_>) -> u8 {
+        let has = |b: bool, g: u8| if b { g } else { 0 };
+        let ifaces = ctx.info.is_some_and(|i| !i.interfaces.is_empty());
+        let vrfs = ctx.info.is_some_and(|i| !i.vrfs.is_empty());
+        has(self.fwd.is_some(), group::FWD)
+            | has(!self.mpls_sections.is_empty() || self.mpls_raw.is_some(), group::MPLS)
+            | has(self.start.is_some(), group::START)
+            | has(self.end.is_some(), group::END)
+            | has(!self.sampling.is_empty() || self.sampler_id.is_some() || self.selector_id.is_some(), group::RATE)
+            | has(ifaces && (self.ingress_if.is_some() || self.egress_if.is_some()), group::IFACE)
+            | has(vrfs && (self.ingress_vrf.is_some() || self.egress_vrf.is_some()), group::VRF)
+            | has(self.srh.is_some(), group::SRH)
+    }
+}
+
 /// What is the same for every record of a Data Set.
 #[derive(Debug, Clone, Copy)]
 pub(crate) struct SetContext<'e> {
@@ -268,9 +310,31 @@ pub(crate) struct DerivedRow<'e> {
     pub srh: Option<&'static str>,
 }
 
+/// (outcome, reason) names of each forwardingStatus octet, from
+/// [`ForwardingStatus`], computed once.
+fn forwarding_names() -> &'static [(&'static str, Option<&'static str>); 256] {
+    static NAMES: std::sync::OnceLock<[(&'static str, Option<&'static str>); 256]> = std::sync::OnceLock::new();
+    NAMES.get_or_init(|| {
+        let mut t = [("unknown", None); 256];
+        for (octet, slot) in (0u64..).zip(t.iter_mut()) {
+            let s = ForwardingStatus::from_raw(octet);
+            *slot = (s.outcome().name(), s.reason_name());
+        }
+        t
+    })
+}
+
 /// Big-endian unsigned integer of up to 8 octets (RFC 7011 §6.2 widening).
+#[inline]
 pub(crate) fn be_uint(b: &[u8]) -> u64 {
-    b.iter().fold(0u64, |acc, x| (acc << 8) | u64::from(*x))
+    // The usual widths without a byte loop.
+    match *b {
+        [x] => u64::from(x),
+        [a, x] => u64::from(u16::from_be_bytes([a, x])),
+        [a, b2, c, x] => u64::from(u32::from_be_bytes([a, b2, c, x])),
+        [a, b2, c, d, e, f, g, x] => u64::from_be_bytes([a, b2, c, d, e, f, g, x]),
+        _ => b.iter().fold(0u64, |acc, x| (acc << 8) | u64::from(*x)),
+    }
 }
 
 fn be_u32(b: &[u8]) -> Option<u32> {
@@ -297,6 +361,7 @@ impl DerivedPlan {
     /// of field `i`; MPLS labels go to `labels` (cleared first).
     pub(crate) fn compute<'a, 'e>(
         &self,
+        groups: u8,
         raw: impl Fn(usize) -> Option<&'a [u8]>,
         ctx: &SetContext<'e>,
         labels: &mut Vec<u32>,
@@ -305,14 +370,17 @@ impl DerivedPlan {
         let mut row = DerivedRow::default();
         let uint = |i: Option<usize>| i.and_then(&raw).map(be_uint);
 
-        if let Some(v) = uint(self.fwd) {
-            let status = ForwardingStatus::from_raw(v);
-            row.outcome = Some(status.outcome().name());
-            row.reason = status.reason_name();
+        if let Some(v) = uint(self.fwd).filter(|_| groups & group::FWD != 0) {
+            // Only the least-significant octet has a meaning (IANA IE 89).
+            let (outcome, reason) = forwarding_names().get(usize::from(ForwardingStatus::from_raw(v).octet())).copied().unwrap_or(("unknown", None));
+            row.outcome = Some(outcome);
+            row.reason = reason;
         }
 
         labels.clear();
-        if !self.mpls_sections.is_empty() {
+        if groups & group::MPLS == 0 {
+            // Constant for the set.
+        } else if !self.mpls_sections.is_empty() {
             row.labels = true;
             for i in &self.mpls_sections {
                 // 3 octets: label (20 bits), TC (3), S (1); IANA IE 70-79.
@@ -367,9 +435,11 @@ impl DerivedPlan {
         row.start_ns = time(self.start, stats);
         row.end_ns = time(self.end, stats);
 
-        row.rate = self.rate(&raw, ctx, stats);
+        if groups & group::RATE != 0 {
+            row.rate = self.rate(&raw, ctx, stats);
+        }
 
-        if let Some(info) = ctx.info {
+        if let Some(info) = ctx.info.filter(|_| groups & (group::IFACE | group::VRF) != 0) {
             let name = |i: Option<usize>, map: &'e super::enrich::IdMap<u32, super::enrich::Timeline<std::sync::Arc<str>>>| {
                 let key = u32::try_from(uint(i)?).ok()?;
                 map.get(&key)?.at(ctx.export_time).map(|s| &**s)

@@ -12,6 +12,7 @@
 //! Both files are written under temporary names in the output directory
 //! and renamed when complete, so a failed run leaves no half-written file.
 
+use std::cell::Cell;
 use std::collections::HashSet;
 use std::fs::File;
 use std::io::{BufWriter, Write};
@@ -19,7 +20,7 @@ use std::path::{Path, PathBuf};
 use std::sync::mpsc::{sync_channel, Receiver};
 use std::sync::Arc;
 use std::thread;
-use std::time::Instant;
+use std::time::{Duration, Instant};
 
 use anyhow::{anyhow, Context};
 use arrow::array::RecordBatch;
@@ -97,6 +98,11 @@ pub struct PassSeconds {
     pub templates: f64,
     /// Pass 2: records, compression, writing.
     pub records: f64,
+    /// Of pass 2, time the decoding thread waited for the writer (a full
+    /// channel): high when compression is the bottleneck.
+    pub waiting_for_writer: f64,
+    /// Time the writer thread spent encoding, compressing and writing.
+    pub writer_busy: f64,
 }
 
 /// The options table's path for a flows table at `flows`:
@@ -148,11 +154,15 @@ pub fn convert(inputs: &Inputs, settings: &ConvertSettings, progress: &Progress)
     let rows = settings.sink.row_group_rows.max(1);
     let mut flows = TableBuilder::new(flows_schema.clone(), rows.min(1 << 20));
     let mut options = TableBuilder::new(options_schema.clone(), rows.min(OPTIONS_CAPACITY));
+    let waited = Cell::new(Duration::ZERO);
     let send = |kind: TableKind, builder: &mut TableBuilder| -> anyhow::Result<()> {
         let batch = builder.finish()?;
+        let t = Instant::now();
         // A closed channel means the writer stopped on an error, reported
         // when it is joined below.
-        tx.send((kind, batch)).map_err(|_| anyhow!("the Parquet writer stopped"))
+        let sent = tx.send((kind, batch)).map_err(|_| anyhow!("the Parquet writer stopped"));
+        waited.set(waited.get() + t.elapsed());
+        sent
     };
     let pass = runner.run_pass(inputs, progress, "pass 2/2", |_, event| {
         if let Event::Data(set) = event {
@@ -182,12 +192,17 @@ pub fn convert(inputs: &Inputs, settings: &ConvertSettings, progress: &Progress)
     drop(tx);
     let written = writer.join().map_err(|_| anyhow!("the Parquet writer thread panicked"))?;
     // A writer error explains a failed send; report it first.
-    let (flows_w, options_w) = written?;
+    let (flows_w, options_w, writer_busy) = written?;
     let accounting = tail?;
 
     let flows_summary = flows_out.finish(flows_w, flows_schema.columns().len())?;
     let options_summary = options_out.finish(options_w, options_schema.columns().len())?;
-    let seconds = PassSeconds { templates: pass1, records: started.elapsed().as_secs_f64() - pass1 };
+    let seconds = PassSeconds {
+        templates: pass1,
+        records: started.elapsed().as_secs_f64() - pass1,
+        waiting_for_writer: waited.get().as_secs_f64(),
+        writer_busy,
+    };
     Ok(ConvertOutcome {
         seconds,
         flows: flows_summary,
@@ -201,7 +216,7 @@ pub fn convert(inputs: &Inputs, settings: &ConvertSettings, progress: &Progress)
 }
 
 type Sink = ParquetSink<BufWriter<File>>;
-type Written = (Finished, Finished);
+type Written = (Finished, Finished, f64);
 
 /// A finished sink: the file and its row counts.
 struct Finished {
@@ -211,18 +226,24 @@ struct Finished {
 }
 
 fn write_batches(rx: Receiver<(TableKind, RecordBatch)>, mut flows: Sink, mut options: Sink) -> anyhow::Result<Written> {
+    let mut busy = Duration::ZERO;
     for (kind, batch) in rx {
+        let t = Instant::now();
         let sink = match kind {
             TableKind::Flows => &mut flows,
             TableKind::Options => &mut options,
         };
         sink.write(&batch).context("cannot write Parquet")?;
+        busy += t.elapsed();
     }
+    let t = Instant::now();
     let finish = |sink: Sink| -> anyhow::Result<Finished> {
         let (file, summary) = sink.finish().context("cannot finish the Parquet file")?;
         Ok(Finished { file, rows: summary.rows, row_groups: summary.row_groups })
     };
-    Ok((finish(flows)?, finish(options)?))
+    let done = (finish(flows)?, finish(options)?);
+    busy += t.elapsed();
+    Ok((done.0, done.1, busy.as_secs_f64()))
 }
 
 /// An output file written under a temporary name beside its final path.

@@ -24,7 +24,7 @@ pub enum DerivedColumn {
     /// `for-us`). Null without forwardingStatus and for codes the registry
     /// leaves unassigned (the raw value stays in `forwardingStatus`).
     ForwardingReason,
-    /// `mplsLabelStack` (List<UInt32>): label values, top of the stack
+    /// `mplsLabelStack` (`List<UInt32>`): label values, top of the stack
     /// first. From mplsTopLabelStackSection (70) and
     /// mplsLabelStackSection2..10 (71–79), 3-octet label/TC/S entries (RFC
     /// 3032 §2.1 without TTL), read in section order and stopping after the

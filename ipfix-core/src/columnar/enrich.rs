@@ -242,8 +242,17 @@ type DomainKey = (Option<IpAddr>, u32);
 /// | systemInitTimeMilliseconds (160) | domain → init time | `flowStart/EndTime` from sysUpTime |
 ///
 /// The key elements count whether or not they are scope fields; one
-/// interface map serves both directions, as does one VRF map. Sampling
-/// parameters are those of [`SamplingParams::rate`](self). Values change
+/// interface map serves both directions, as does one VRF map.
+///
+/// Sampling parameters give N of "1 in N" (facts sheet §8.3, after RFC
+/// 5474 §5.4: the scale factor is the inverse of the selection fraction),
+/// rounded to the nearest integer, in this order of preference:
+/// samplingPacketInterval/Space (305/306): (interval + space) / interval
+/// (RFC 5476 §6.5.2.1: 1 in 10 is interval 1, space 9);
+/// samplingSize/Population (309/310): N / n; samplingProbability (311):
+/// 1 / p; samplingInterval (34): N itself (IANA: 100 means 1 of every 100);
+/// samplerRandomInterval (50): N itself (from memory, unconfirmed). The
+/// same rules apply to sampling elements inside data records. Values change
 /// over time (a device restarts, an interface is renamed): each is kept
 /// with the Export Time of its message, and a record gets the value in
 /// force at its own Export Time. Memory is bounded: at most 65,536 domains,

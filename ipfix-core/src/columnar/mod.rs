@@ -20,7 +20,7 @@
 //! 1. Provenance: `exporter` (Utf8, the exporter's IP address from the
 //!    transport; null for RFC 5655 files), `observationDomainId` (UInt32),
 //!    `templateId` (UInt16), `exportTime` (Timestamp(Second, "UTC")).
-//! 2. Options table only: `scopeFields` (List<Utf8>), the column names of
+//! 2. Options table only: `scopeFields` (`List<Utf8>`), the column names of
 //!    the record's scope fields, in template order.
 //! 3. One column per Information Element, the union over all templates in
 //!    order of first appearance; a template that lacks a column gives null.
@@ -48,7 +48,7 @@
 //! "UTC"), unsigned256 → FixedSizeBinary(32) (big-endian, left-padded when
 //! sent reduced), basicList → List of the element type (see
 //! [`basic_list_item_type`]), subTemplateList and subTemplateMultiList →
-//! List<Struct> with the [record struct layout](record_struct_type):
+//! `List<Struct>` with the [record struct layout](record_struct_type):
 //!
 //! ```text
 //! list<struct<

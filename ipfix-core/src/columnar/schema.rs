@@ -87,7 +87,7 @@ pub(crate) const SCOPE_FIELDS: &str = "scopeFields";
 pub enum ColumnRole {
     /// A provenance column.
     Provenance(Provenance),
-    /// `scopeFields` (options table): List<Utf8> of the record's scope
+    /// `scopeFields` (options table): `List<Utf8>` of the record's scope
     /// column names.
     ScopeFields,
     /// The values of one Information Element.
@@ -360,7 +360,7 @@ const BASIC_LIST_ELEMENTS: [(u16, &str); 11] = [
 
 /// The item type of a basicList column for the list element `list`.
 ///
-/// A registered list whose elements are known ([`BASIC_LIST_ELEMENTS`]
+/// A registered list whose elements are known (the table
 /// above, e.g. srhSegmentIPv6BasicList → Utf8 addresses) gets the element's
 /// type; any other basicList (the generic basicList IE 291, enterprise
 /// lists) gets Utf8 items in the value text form, since the element is only

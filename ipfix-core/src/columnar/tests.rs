@@ -992,3 +992,99 @@ fn sampling_params_rates() {
     assert_eq!(p(|s| s.random_interval = Some(1000)), Some(1000));
     assert_eq!(p(|_| {}), None);
 }
+
+// ---------------------------------------------------------------------------
+// Robustness: any record content converts without panic, columns in step
+// ---------------------------------------------------------------------------
+
+mod prop {
+    use super::*;
+    use proptest::prelude::*;
+
+    /// One field of every IANA type the registry has, at its natural
+    /// length, plus wrong lengths, an enterprise element and lists.
+    fn fields() -> Vec<(u16, u16)> {
+        let mut f: Vec<(u16, u16)> = DataType::ALL
+            .iter()
+            .filter(|t| !t.is_list())
+            .filter_map(|t| {
+                let ie = ie::all().iter().find(|e| e.data_type == Some(*t))?;
+                Some((ie.id, t.natural_length().unwrap_or(VARIABLE_LENGTH)))
+            })
+            .collect();
+        // forwardingStatus, MPLS, times, sampling, names: derived inputs.
+        f.extend([(89, 2), (70, 3), (71, 3), (316, VARIABLE_LENGTH), (158, 4), (22, 4), (34, 4), (311, 4), (10, 4), (502, 2)]);
+        f.extend([(8, 3), (152, 5)]); // lengths their types do not allow
+        f
+    }
+
+    fn list_fields() -> Vec<(u16, u16)> {
+        vec![(291, VARIABLE_LENGTH), (496, VARIABLE_LENGTH), (292, VARIABLE_LENGTH), (293, VARIABLE_LENGTH), (2, 4)]
+    }
+
+    fn encode(fields: &[(u16, u16)], records: &[Vec<u8>]) -> Vec<Vec<u8>> {
+        let loose: Vec<ElementId> = fields.iter().map(|(ie, _)| ElementId::iana(*ie)).collect();
+        let mut e = super::loose(encoder(9), &loose);
+        let mut t = template(256, 0, fields);
+        t.fields.push(FieldSpecifier::enterprise(PEN, 1, 3));
+        e.add_template(t).unwrap();
+        e.add_template(template(257, 0, &[(8, 4), (82, VARIABLE_LENGTH)])).unwrap();
+        for r in records {
+            e.push_raw(TemplateId(256), r).unwrap();
+        }
+        e.finish(EXPORT_TIME)
+    }
+
+    /// Record bytes for `fields` from `noise`: fixed fields take their
+    /// length, variable fields a 1-octet length prefix and up to 40 octets.
+    fn record(fields: &[(u16, u16)], noise: &[u8]) -> Vec<u8> {
+        let mut it = noise.iter().copied().cycle();
+        let mut r = Vec::new();
+        for (_, len) in fields {
+            let n = if *len == VARIABLE_LENGTH {
+                let n = it.next().unwrap_or(0) % 40;
+                r.push(n);
+                usize::from(n)
+            } else {
+                usize::from(*len)
+            };
+            r.extend(it.by_ref().take(n));
+        }
+        r.extend(it.take(3)); // the enterprise element
+        r
+    }
+
+    proptest! {
+        #![proptest_config(ProptestConfig::with_cases(64))]
+
+        #[test]
+        fn any_values_convert(noise in proptest::collection::vec(any::<u8>(), 1..200), n in 1usize..6, lists in any::<bool>()) {
+            let f = if lists { list_fields() } else { fields() };
+            let records: Vec<Vec<u8>> = (0..n).map(|i| record(&f, &noise[i % noise.len()..])).collect();
+            let messages = encode(&f, &records);
+            // The decoder may reject a malformed list (the whole message,
+            // RFC 7011 §9.1); whatever it accepts must convert.
+            let mut accepted = 0;
+            let mut d = Decoder::new(Config::default());
+            for m in &messages {
+                if let Ok(events) = d.decode(&udp(), None, m) {
+                    accepted += events.filter(|e| matches!(e, Event::Data(_))).count();
+                }
+            }
+            let c = convert_lenient(udp(), &messages);
+            prop_assert!(c.flows.num_rows() <= n);
+            if !lists {
+                // Without lists nothing can be malformed: every record converts.
+                prop_assert_eq!(c.flows.num_rows(), n);
+            }
+            prop_assert_eq!(accepted > 0, c.flows.num_rows() > 0);
+        }
+    }
+
+    /// [`convert`] that skips messages the decoder rejects.
+    fn convert_lenient(session: TransportSession, messages: &[Vec<u8>]) -> Converted {
+        let mut d = Decoder::new(Config::default());
+        let ok: Vec<Vec<u8>> = messages.iter().filter(|m| d.decode(&session, None, m).is_ok()).cloned().collect();
+        convert(session, &ok)
+    }
+}

@@ -149,7 +149,7 @@ pub use schema::{
     basic_list_item_type, column_name, element_type, record_struct_type, ColumnRole, ColumnSpec, Provenance,
     TableKind, TableSchema, CONTRACT_VERSION,
 };
-pub use sink::{Compression, ParquetSink, SinkOptions, SinkSummary, TableWriter};
+pub use sink::{Compression, ParquetSink, SinkOptions, SinkSummary, TableWriter, DEFAULT_ROW_GROUP_ROWS};
 pub use text::write_value_text;
 
 /// What can go wrong building batches or writing Parquet. Input never

@@ -21,14 +21,15 @@ Buckets of --every are aligned to whole multiples since 1970; the window
 bounds must fall on bucket boundaries.
 
 Per value of the --by dimensions: drop ratio (sampled dropped / sampled
-packets) per period with a 95% Wilson score interval, a one-sided
-two-proportion z-test of during and after against before (NIST/SEMATECH
-e-Handbook section 7.3.3), when drops rose above the baseline band, and how
-long until --stable-buckets buckets in a row were back within it.
-The effective sample size is the number of sampled flow records (a record's
-packets share one fate). A change counts when p < --alpha / (2 x values)
-(Bonferroni) and the ratio rose by at least --min-increase (absolute, 0.01 =
-one percentage point).
+packets) per period with a 95% Wilson score interval (ratio-estimator
+variance over flow records, Cochran 1977: a record's packets share one
+fate), a one-sided two-proportion z-test of during and after against before
+on the share of flow records that dropped (NIST/SEMATECH e-Handbook section
+7.3.3), when drops rose above the baseline band, and how long until
+--stable-buckets buckets in a row were back within it. A change counts when
+p < --alpha and the packet drop ratio rose by at least
+--min-increase (absolute, 0.01 = one percentage point). With many values,
+lower --alpha for a family-wise level (Bonferroni: alpha / (2 x values)).
 
 Classes: unaffected, transient (rose in the window, came back; with the
 time), persistent (still above baseline after the window), new (only after
@@ -88,9 +89,8 @@ pub struct CompareArgs {
     #[arg(long, value_name = "N", default_value_t = 3)]
     pub stable_buckets: usize,
 
-    /// Family-wise significance level, split over all tests (two per value;
-    /// Bonferroni).
-    #[arg(long, value_name = "P", default_value_t = 0.05)]
+    /// Significance level of each one-sided test.
+    #[arg(long, value_name = "P", default_value_t = 0.01)]
     pub alpha: f64,
 
     /// Smallest absolute rise of the drop ratio that counts (0.01 = 1 point).
@@ -260,11 +260,10 @@ fn write_table(result: &Comparison, top: usize, out: &mut impl Write) -> anyhow:
     )?;
     writeln!(
         out,
-        "Thresholds: buckets {} s, stable {} bucket(s), alpha {} (per test {:.1e}), min increase {:.2} points; counts: {}",
+        "Thresholds: buckets {} s, stable {} bucket(s), alpha {} per test, min increase {:.2} points; counts: {}",
         t.every_seconds,
         t.stable_buckets,
         t.alpha,
-        result.test_alpha,
         t.min_increase * 100.0,
         result
             .counts
@@ -320,7 +319,7 @@ fn write_table(result: &Comparison, top: usize, out: &mut impl Write) -> anyhow:
         writeln!(out, "({} more value(s); --top 0 shows all)", result.values.len() - top)?;
     }
     writeln!(out)?;
-    writeln!(out, "Drop ratio = sampled dropped / sampled packets, with a 95% Wilson interval; test: one-sided two-proportion z-test (NIST/SEMATECH e-Handbook 7.3.3).")?;
+    writeln!(out, "Drop ratio = sampled dropped / sampled packets, 95% Wilson interval; interval with ratio-estimator variance over flow records (Cochran 1977); test: one-sided two-proportion z-test on records that dropped (NIST/SEMATECH e-Handbook 7.3.3).")?;
     writeln!(out, "Note: {}", result.caution)?;
     Ok(())
 }

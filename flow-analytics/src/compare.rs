@@ -22,37 +22,47 @@
 //! dropped over sampled total packets; under one sampling rate it equals
 //! the ratio of the estimates).
 //!
-//! Effective sample size: the packets of one flow record share one fate
-//! (dropped or forwarded together), so they are a cluster, not independent
-//! trials. Following the design effect of cluster sampling (Kish, *Survey
-//! Sampling*, 1965; deff = 1 + (m̄−1)ρ with intra-record correlation ρ
-//! taken as 1, so deff = m̄ packets per record), intervals and tests use
-//! the packet proportion with `n` = the number of sampled flow records.
+//! Flow records as clusters: the packets of one record share one fate
+//! (dropped or forwarded together), so they are not independent trials and
+//! a binomial variance on packets would be far too small for a bursty
+//! record. The ratio `p = Σk / Σt` over `n` sampled records (`k` dropped,
+//! `t` packets of a record) gets the linearization variance of a ratio
+//! estimator with records as the sampling units (Cochran, *Sampling
+//! Techniques*, 3rd ed. 1977, ch. 6, ratio estimators; from memory,
+//! unconfirmed chapter):
+//! `v = n/(n−1) · Σ(kᵢ − p·tᵢ)² / (Σt)²`, computed from `Σk²`, `Σk·t` and
+//! `Σt²` gathered in the scan.
 //!
 //! # Statistics
 //!
-//! - Interval: Wilson score interval at 95% on the sampled proportion
-//!   (E. B. Wilson 1927, "Probable inference, the law of succession, and
-//!   statistical inference", JASA 22(158):209–212; also Agresti & Coull
-//!   1998, The American Statistician 52(2):119–126).
-//! - Change test: one-sided two-proportion z-test with pooled variance,
-//!   `z = (p₂ − p₁) / √(p̂(1−p̂)(1/n₁ + 1/n₂))`, `p̂ = (x₁+x₂)/(n₁+n₂)`
-//!   (NIST/SEMATECH e-Handbook of Statistical Methods §7.3.3, "How can we
-//!   determine whether two processes produce the same proportion of
-//!   defectives?"; Agresti, *Categorical Data Analysis*, 3rd ed., §2.1 and
-//!   §3.1). A change is *significant* when the p-value is below the
-//!   per-test level **and** the ratio rose by at least `min_increase`
-//!   (absolute). The per-test level is the family-wise `alpha` split over
-//!   all tests (two per value), the Bonferroni correction (Dunn 1961,
-//!   "Multiple comparisons among means", JASA 56(293):52–64).
+//! - Interval: Wilson score interval at 95% (E. B. Wilson 1927, "Probable
+//!   inference, the law of succession, and statistical inference", JASA
+//!   22(158):209–212) with the effective sample size `n_eff = p(1−p)/v`
+//!   (Kish, *Survey Sampling*, 1965: design effect); `n_eff` = records
+//!   when `v` is 0.
+//! - Change test (whether drops rose): one-sided two-proportion z-test with
+//!   pooled variance on the share of sampled flow records that dropped
+//!   packets, records being the independent units,
+//!   `z = (q₂ − q₁) / √(q̂(1−q̂)(1/n₁ + 1/n₂))`, `q̂ = (d₁+d₂)/(n₁+n₂)`
+//!   (NIST/SEMATECH e-Handbook of Statistical Methods §7.3.3; Agresti,
+//!   *Categorical Data Analysis*, 3rd ed., §3.1). Testing records rather
+//!   than packets keeps one bursty record from looking like many drops.
+//!   A change is *significant* when the p-value is below `alpha` **and**
+//!   the packet drop ratio rose by at least `min_increase` (absolute). With many values
+//!   some tests pass by chance (about `alpha` × tests when nothing
+//!   changed); the `min_increase` floor keeps chance flags rare. For a
+//!   family-wise level, pass `alpha / (2 × values)` (Bonferroni; Dunn
+//!   1961, JASA 56(293):52–64).
 //! - Baseline band: the 95% Wilson interval of the baseline ratio; a
 //!   bucket is within the band when its ratio is at most the upper bound
 //!   (buckets without traffic count as within). The band only times onset
 //!   and convergence of values the period tests flag; it does not classify.
 //! - Onset: the first bucket above the band at or after the window start
-//!   (after the window end for `new`). Convergence: the start of the first
-//!   run of `stable_buckets` consecutive in-band buckets after the onset;
-//!   reported from the onset and from the window start.
+//!   (after the window end for `new`); for `persistent` and `new`, the
+//!   first such bucket not followed by a stable in-band run (an isolated
+//!   noisy bucket before the real start is skipped). Convergence: the start
+//!   of the first run of `stable_buckets` consecutive in-band buckets after
+//!   the onset; reported from the onset and from the window start.
 //!
 //! # Classes
 //!
@@ -73,7 +83,7 @@ use serde::Serialize;
 use crate::contract;
 use crate::dimension::Dimension;
 use crate::error::Error;
-use crate::query::{columns, DropQuery, SAMPLED_DROPPED, SAMPLED_TOTAL};
+use crate::query::{columns, DropQuery, DROPPED_RECORDS, SAMPLED_DROPPED, SAMPLED_TOTAL, SUM_KK, SUM_KT, SUM_TT};
 
 /// The normal quantile for a two-sided 95% interval.
 const Z_95: f64 = 1.96;
@@ -87,13 +97,15 @@ stands for N packets); intervals and tests describe sampling uncertainty only. T
 but do not replace, your own change procedures and judgement: the operator decides.";
 
 /// The statistical method, with its sources, as printed in reports.
-pub const METHOD: &str = "Drop ratio = sampled dropped packets / sampled packets. Effective \
-sample size = sampled flow records (packets of a record share one fate: cluster-sampling design \
-effect, Kish 1965). 95% interval: Wilson score interval (Wilson 1927, JASA 22:209-212). Change \
-test: one-sided two-proportion z-test with pooled variance (NIST/SEMATECH e-Handbook of \
-Statistical Methods, section 7.3.3; Agresti, Categorical Data Analysis). Significant = p-value \
-below alpha / (2 x values) (Bonferroni; Dunn 1961) and an absolute rise of at least \
-min-increase.";
+pub const METHOD: &str = "Drop ratio p = sampled dropped packets / sampled packets. Flow \
+records are the sampling units (a record's packets share one fate): the variance of p is the \
+ratio-estimator variance over records, n/(n-1) * sum((k - p*t)^2) / (sum t)^2 (Cochran, Sampling \
+Techniques, 1977, ch. 6). 95% interval: Wilson score interval (Wilson 1927, JASA 22:209-212) \
+with the effective sample size p(1-p)/variance (Kish 1965, design effect). Change test: \
+one-sided two-proportion z-test with pooled variance on the share of sampled flow records \
+that dropped packets (NIST/SEMATECH e-Handbook of Statistical Methods, section 7.3.3; \
+Agresti, Categorical Data Analysis). Significant = p-value below alpha and an absolute rise of at least \
+min-increase (no multiple-comparison correction; Bonferroni = alpha / (2 x values)).";
 
 /// Settings of a comparison; [`Default`] gives the documented defaults
 /// except the window, which must be set.
@@ -108,8 +120,7 @@ pub struct Thresholds {
     pub every_seconds: u64,
     /// In-band buckets in a row that count as converged (default 3).
     pub stable_buckets: usize,
-    /// Family-wise significance level, split over all tests (Bonferroni;
-    /// default 0.05).
+    /// Significance level of each one-sided test (default 0.01).
     pub alpha: f64,
     /// Smallest absolute rise of the drop ratio that counts (default 0.01
     /// = one percentage point).
@@ -123,7 +134,7 @@ impl Default for Thresholds {
             after_seconds: None,
             every_seconds: 60,
             stable_buckets: 3,
-            alpha: 0.05,
+            alpha: 0.01,
             min_increase: 0.01,
         }
     }
@@ -223,8 +234,14 @@ pub struct Period {
     pub sampled_dropped: u64,
     /// Sampled packets.
     pub sampled_total: u64,
-    /// Sampled flow records (the effective sample size).
+    /// Sampled flow records.
     pub flow_records: u64,
+    /// Sampled flow records that dropped packets.
+    pub dropped_records: u64,
+    /// Variance of the drop ratio (ratio estimator over records).
+    pub variance: Option<f64>,
+    /// Effective sample size `p(1−p)/variance` (records when 0).
+    pub effective_n: Option<f64>,
     /// Sampled proportion, null without traffic.
     pub drop_ratio: Option<f64>,
     /// Wilson 95% lower bound.
@@ -333,7 +350,7 @@ pub struct Comparison {
     pub after: Span,
     /// Settings used.
     pub thresholds: Thresholds,
-    /// Per-test significance level: alpha / (2 × values).
+    /// Significance level each test used (= `thresholds.alpha`).
     pub test_alpha: f64,
     /// The statistical method and its sources.
     pub method: String,
@@ -468,10 +485,10 @@ impl CompareQuery {
             .iter()
             .filter(|(_, info)| info.dropped.values().any(|c| c.sampled_dropped > 0))
             .collect();
-        let test_alpha = t.alpha / (2.0 * kept.len().max(1) as f64);
+        let test_alpha = t.alpha;
         let mut values: Vec<ValueResult> = kept
             .into_iter()
-            .map(|(key, info)| self.judge(key, info, &cells, &buckets, ws, we, test_alpha))
+            .map(|(key, info)| self.judge(key, info, &cells, &buckets, (ws, we), test_alpha))
             .collect();
         values.sort_by(|a, b| {
             a.class.cmp(&b.class).then(
@@ -525,7 +542,7 @@ impl CompareQuery {
             .collect();
         if evidence.is_empty() {
             evidence.push(format!(
-                "{} value(s) compared; none rose significantly (one-sided two-proportion z-test, per-test level {:.2e}, min rise {:.2} points) during or after the window",
+                "{} value(s) compared; none rose significantly (one-sided z-test, alpha {}, min rise {:.2} points) during or after the window",
                 values.len(),
                 test_alpha,
                 t.min_increase * 100.0
@@ -558,8 +575,7 @@ impl CompareQuery {
         info: &ValueInfo,
         cells: &Cells,
         buckets: &[i64],
-        ws: i64,
-        we: i64,
+        (ws, we): (i64, i64),
         alpha: f64,
     ) -> ValueResult {
         let t = &self.thresholds;
@@ -576,6 +592,10 @@ impl CompareQuery {
                     sampled_dropped: d.sampled_dropped,
                     sampled_total: n.sampled_total,
                     records_total: n.records_total,
+                    records_dropped: d.records_dropped,
+                    kk: d.kk,
+                    kt: d.kt,
+                    tt: n.tt,
                 }
             })
             .collect();
@@ -619,10 +639,21 @@ impl CompareQuery {
             (true, true) => Class::Persistent,
             (false, true) => Class::New,
         };
+        // Onset of a lasting rise (persistent, new): the first bucket above
+        // the band that is not followed by a stable in-band run, so that an
+        // isolated noisy bucket before the real start does not count.
+        let lasting_from = |from: usize| {
+            (from..per.len())
+                .filter(|&i| per.get(i).is_some_and(elevated))
+                .find(|&i| converged_after(i).is_none())
+                .or_else(|| first_elevated(buckets.get(from).copied().unwrap_or(i64::MAX)))
+        };
+        let index_of = |time: i64| buckets.iter().position(|b| *b >= time).unwrap_or(buckets.len());
         let onset_idx = match class {
             Class::Unaffected => None,
-            Class::New => first_elevated(we),
-            _ => first_elevated(ws),
+            Class::New => lasting_from(index_of(we)),
+            Class::Persistent => lasting_from(index_of(ws)),
+            Class::Transient => first_elevated(ws),
         };
         let mut converged_idx = onset_idx.and_then(converged_after);
         if class == Class::Persistent {
@@ -702,21 +733,25 @@ impl CompareQuery {
             return Test { z: None, p_value: None, increase: 0.0, significant: false };
         };
         let increase = p2 - p1;
-        let (x1, n1) = base.effective();
-        let (x2, n2) = later.effective();
-        match two_proportion_z(x1, n1, x2, n2) {
+        match two_proportion_z(
+            base.records_dropped as f64,
+            base.records_total as f64,
+            later.records_dropped as f64,
+            later.records_total as f64,
+        ) {
             Some((z, p)) => Test {
                 z: Some(z),
                 p_value: Some(p),
                 increase,
                 significant: p < alpha && increase >= t.min_increase,
             },
-            // No baseline traffic (or no variance): decide on the rise alone.
+            // No baseline traffic, or every record dropped in both: decide
+            // on the rise alone.
             None => Test {
                 z: None,
                 p_value: None,
                 increase,
-                significant: base.sampled_total == 0 && later.sampled_dropped > 0 && increase >= t.min_increase,
+                significant: later.sampled_dropped > 0 && increase >= t.min_increase,
             },
         }
     }
@@ -730,18 +765,35 @@ struct Counts {
     sampled_dropped: u64,
     sampled_total: u64,
     records_total: u64,
+    records_dropped: u64,
+    /// Σk², Σt², Σk·t over records (see module docs).
+    kk: f64,
+    tt: f64,
+    kt: f64,
 }
 
 impl Counts {
-    /// (x, n) with n = flow records, x = ratio × n (see module docs).
-    fn effective(&self) -> (f64, f64) {
-        match self.ratio() {
-            Some(p) => {
-                let n = self.records_total as f64;
-                (p * n, n)
-            }
-            None => (0.0, 0.0),
+    /// Ratio-estimator variance of the drop ratio over records.
+    fn variance(&self) -> Option<f64> {
+        let p = self.ratio()?;
+        let n = self.records_total as f64;
+        if n < 2.0 {
+            return None;
         }
+        let total = self.sampled_total as f64;
+        let ss = (self.kk - 2.0 * p * self.kt + p * p * self.tt).max(0.0);
+        Some(n / (n - 1.0) * ss / (total * total))
+    }
+
+    /// (x, n) for the Wilson interval: n = p(1−p)/variance, x = p·n.
+    fn effective(&self) -> (f64, f64) {
+        let Some(p) = self.ratio() else { return (0.0, 0.0) };
+        let records = self.records_total as f64;
+        let n = match self.variance() {
+            Some(v) if v > 0.0 && p > 0.0 && p < 1.0 => p * (1.0 - p) / v,
+            _ => records,
+        };
+        (p * n, n)
     }
 
     fn wilson(&self) -> Option<(f64, f64)> {
@@ -755,6 +807,10 @@ impl Counts {
         self.sampled_dropped = self.sampled_dropped.saturating_add(other.sampled_dropped);
         self.sampled_total = self.sampled_total.saturating_add(other.sampled_total);
         self.records_total = self.records_total.saturating_add(other.records_total);
+        self.records_dropped = self.records_dropped.saturating_add(other.records_dropped);
+        self.kk += other.kk;
+        self.tt += other.tt;
+        self.kt += other.kt;
     }
 
     fn ratio(&self) -> Option<f64> {
@@ -796,6 +852,8 @@ fn collect_cells(
     let reason_col = frame.column(contract::FORWARDING_REASON)?;
     let num = |name: &str| frame.column(name);
     let records = num(columns::FLOW_RECORDS)?;
+    let (kk, tt, kt) = (num(SUM_KK)?, num(SUM_TT)?, num(SUM_KT)?);
+    let drop_records = num(DROPPED_RECORDS)?;
     let (dp, tp, sd, st) = (
         num(columns::DROPPED_PACKETS)?,
         num(columns::TOTAL_PACKETS)?,
@@ -826,12 +884,16 @@ fn collect_cells(
             sampled_dropped: any_u64(&sd.get(row)?),
             sampled_total: any_u64(&st.get(row)?),
             records_total: any_u64(&records.get(row)?),
+            records_dropped: any_u64(&drop_records.get(row)?),
+            kk: any_f64(&kk.get(row)?),
+            tt: any_f64(&tt.get(row)?),
+            kt: any_f64(&kt.get(row)?),
         };
         cells
             .place_totals
             .entry((place.clone(), bucket))
             .or_default()
-            .add(&Counts { est_dropped: 0, sampled_dropped: 0, ..counts });
+            .add(&Counts { est_dropped: 0, sampled_dropped: 0, records_dropped: 0, kk: 0.0, kt: 0.0, ..counts });
         *cells.bucket_totals.entry(bucket).or_default() += counts.est_total;
         if let Some(r) = &reason {
             if counts.est_dropped > 0 {
@@ -849,7 +911,7 @@ fn collect_cells(
         info.dropped
             .entry(bucket)
             .or_default()
-            .add(&Counts { est_total: 0, sampled_total: 0, records_total: 0, ..counts });
+            .add(&Counts { est_total: 0, sampled_total: 0, records_total: 0, tt: 0.0, ..counts });
         if let Some(r) = reason {
             if counts.est_dropped > 0 {
                 *info.reason_drops.entry(r).or_default() += counts.est_dropped;
@@ -866,6 +928,14 @@ fn any_u64(value: &AnyValue<'_>) -> u64 {
         AnyValue::Int64(v) => u64::try_from(*v).unwrap_or(0),
         AnyValue::Int32(v) => u64::try_from(*v).unwrap_or(0),
         _ => 0,
+    }
+}
+
+fn any_f64(value: &AnyValue<'_>) -> f64 {
+    match value {
+        AnyValue::Float64(v) if v.is_finite() => *v,
+        AnyValue::Float32(v) if v.is_finite() => f64::from(*v),
+        other => any_u64(other) as f64,
     }
 }
 
@@ -899,6 +969,9 @@ fn period(c: &Counts) -> Period {
         sampled_dropped: c.sampled_dropped,
         sampled_total: c.sampled_total,
         flow_records: c.records_total,
+        dropped_records: c.records_dropped,
+        variance: c.variance(),
+        effective_n: c.ratio().map(|_| c.effective().1),
         drop_ratio: c.ratio(),
         ratio_low: w.map(|w| w.0),
         ratio_high: w.map(|w| w.1),
@@ -934,6 +1007,7 @@ fn evidence_text(
         Some(p) if p < 1e-6 => "p < 1e-6".to_string(),
         Some(p) => format!("p = {p:.2e}"),
         None if b.sampled_total == 0 => "no baseline traffic".to_string(),
+        None if t.increase > 0.0 => "every record dropped, decided on the rise".to_string(),
         None => "no drops in either period".to_string(),
     };
     let mut text = format!(
@@ -972,8 +1046,8 @@ pub fn wilson(x: f64, n: f64) -> Option<(f64, f64)> {
 }
 
 /// One-sided two-proportion z-test with pooled variance (NIST/SEMATECH
-/// e-Handbook §7.3.3): `(z, P(Z ≥ z))` for H₁ `p₂ > p₁`; `None` when a
-/// sample is empty or the pooled proportion is 0 or 1.
+/// e-Handbook §7.3.3): `(z, P(Z ≥ z))` for H₁ `q₂ > q₁` with `x` of `n`;
+/// `None` when a sample is empty or the pooled share is 0 or 1.
 pub fn two_proportion_z(x1: f64, n1: f64, x2: f64, n2: f64) -> Option<(f64, f64)> {
     if n1 <= 0.0 || n2 <= 0.0 {
         return None;
@@ -984,6 +1058,18 @@ pub fn two_proportion_z(x1: f64, n1: f64, x2: f64, n2: f64) -> Option<(f64, f64)
         return None;
     }
     let z = (x2 / n2 - x1 / n1) / var.sqrt();
+    Some((z, upper_tail(z)))
+}
+
+/// One-sided z-test that `p₂ > p₁` for two independent estimates with
+/// variances `v₁`, `v₂` (NIST/SEMATECH e-Handbook §7.3.3 form, unpooled):
+/// `(z, P(Z ≥ z))`; `None` when `v₁ + v₂` is not positive.
+pub fn ratio_z(p1: f64, v1: f64, p2: f64, v2: f64) -> Option<(f64, f64)> {
+    let var = v1 + v2;
+    if var <= 0.0 || !var.is_finite() {
+        return None;
+    }
+    let z = (p2 - p1) / var.sqrt();
     Some((z, upper_tail(z)))
 }
 
@@ -1035,6 +1121,29 @@ mod tests {
         let (lo, hi) = wilson(50.0, 100.0).unwrap_or((9.0, 9.0));
         assert!((lo - 0.4038).abs() < 1e-3 && (hi - 0.5962).abs() < 1e-3, "{lo} {hi}");
         assert!(wilson(0.0, 0.0).is_none());
+    }
+
+    #[test]
+    fn ratio_variance_hand_example() {
+        // Records (k, t): (0,2) (2,2) (0,4) (1,2); p = 3/10; residuals
+        // k − p·t: −0.6, 1.4, −1.2, 0.4; Σ² = 3.92; v = 4/3 · 3.92 / 10²
+        // = 0.0522667 (hand computation).
+        let c = Counts {
+            sampled_dropped: 3,
+            sampled_total: 10,
+            records_total: 4,
+            kk: 5.0,
+            tt: 28.0,
+            kt: 6.0,
+            ..Counts::default()
+        };
+        let v = c.variance().unwrap_or(0.0);
+        assert!((v - 0.052_266_7).abs() < 1e-6, "{v}");
+        // z for 0.3 vs 0.1 with variances 0.01 and 0.0025: 0.2/√0.0125
+        // = 1.78885; P(Z ≥ 1.78885) ≈ 0.0368 (normal table).
+        let (z, p) = ratio_z(0.1, 0.0025, 0.3, 0.01).unwrap_or((0.0, 1.0));
+        assert!((z - 1.788_85).abs() < 1e-4 && (p - 0.0368).abs() < 5e-4, "{z} {p}");
+        assert!(ratio_z(0.0, 0.0, 0.0, 0.0).is_none());
     }
 
     #[test]

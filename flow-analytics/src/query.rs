@@ -100,6 +100,10 @@ const W_TIME: &str = "_fs_time";
 const A_SAMPLED: &str = "_fs_sampled";
 const A_SAMPLED_TOTAL: &str = "_fs_sampled_total";
 const W_T: &str = "_fs_t";
+const A_KK: &str = "_fs_kk";
+const A_DROP_RECORDS: &str = "_fs_drop_records";
+const A_TT: &str = "_fs_tt";
+const A_KT: &str = "_fs_kt";
 const A_MAX_RATE: &str = "_fs_max_rate";
 const A_FIRST: &str = "_fs_first";
 const A_LAST: &str = "_fs_last";
@@ -516,6 +520,14 @@ pub(crate) struct Stage1Rows {
 pub(crate) const SAMPLED_DROPPED: &str = A_SAMPLED;
 /// Sampled (unscaled) total packets in a stage-1 row.
 pub(crate) const SAMPLED_TOTAL: &str = A_SAMPLED_TOTAL;
+/// Records with at least one dropped packet.
+pub(crate) const DROPPED_RECORDS: &str = A_DROP_RECORDS;
+/// Σ k² over records (k = sampled dropped packets of a record).
+pub(crate) const SUM_KK: &str = A_KK;
+/// Σ t² over records (t = sampled packets of a record).
+pub(crate) const SUM_TT: &str = A_TT;
+/// Σ k·t over records.
+pub(crate) const SUM_KT: &str = A_KT;
 
 impl DropQuery {
     /// Runs stage 1 only (see [`Stage1Rows`]).
@@ -617,6 +629,17 @@ fn stage1_aggs() -> Vec<Expr> {
         len().cast(DataType::UInt64).alias(FLOW_RECORDS),
         col(W_K).sum().alias(A_SAMPLED),
         col(W_T).sum().alias(A_SAMPLED_TOTAL),
+        col(W_K).gt(lit(0u64)).cast(DataType::UInt64).sum().alias(A_DROP_RECORDS),
+        // Second moments for the ratio-estimator variance of `compare`.
+        (col(W_K).cast(DataType::Float64) * col(W_K).cast(DataType::Float64))
+            .sum()
+            .alias(A_KK),
+        (col(W_T).cast(DataType::Float64) * col(W_T).cast(DataType::Float64))
+            .sum()
+            .alias(A_TT),
+        (col(W_K).cast(DataType::Float64) * col(W_T).cast(DataType::Float64))
+            .sum()
+            .alias(A_KT),
         col(W_VAR).sum().alias(W_VAR),
         col(W_KNOWN).sum().alias(W_KNOWN),
         col(W_N).max().alias(A_MAX_RATE),

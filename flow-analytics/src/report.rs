@@ -238,8 +238,7 @@ fn reason_chart(result: &Comparison) -> String {
     }
     let n = result.buckets.len().max(1);
     let step = (n / 6).max(1);
-    for (i, b) in result.buckets.iter().enumerate().step_by(step) {
-        let _ = i;
+    for b in result.buckets.iter().step_by(step) {
         let xx = axis.x(*b);
         s.push_str(&format!(
             r##"<line x1="{xx:.1}" x2="{xx:.1}" y1="{:.1}" y2="{:.1}" stroke="#999"/><text x="{xx:.1}" y="{:.1}" class="tick" text-anchor="middle">{}</text>"##,
@@ -645,7 +644,7 @@ pub fn html(result: &Comparison, inputs: &[String]) -> String {
     item("after", format!("{} to {}", result.after.start, result.after.end));
     item("bucket width", format!("{} s", t.every_seconds));
     item("stable buckets", t.stable_buckets.to_string());
-    item("alpha (family-wise)", format!("{} (per test {:.2e}, Bonferroni)", t.alpha, result.test_alpha));
+    item("alpha", format!("{} per one-sided test", t.alpha));
     item("min increase", format!("{:.2} percentage points", t.min_increase * 100.0));
     s.push_str("</dl></section>");
     s.push_str(&format!(

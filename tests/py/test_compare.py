@@ -72,14 +72,11 @@ def by_label(result):
     return {tuple(v["key"]): v for v in result["values"]}
 
 
-@pytest.mark.parametrize("capture", CAPTURES)
-def test_episodes_get_their_class_and_convergence(capture):
+def check_against_truth(result, t):
     """Ground truth: each episode's expectedClass; transient episodes converge
     within one bucket of convergenceSeconds; onset within one bucket of the
-    episode start."""
-    result = compare_json(capture)
+    episode start; everything else (background wred, bad-ttl) unaffected."""
     values = by_label(result)
-    t = truth(capture)
     episodes = {(str(e["observationDomainId"]), e["why"]): e for e in t["episodes"]}
     for key, episode in episodes.items():
         assert key in values, f"{episode['name']}: no value {key}"
@@ -94,10 +91,41 @@ def test_episodes_get_their_class_and_convergence(capture):
             assert abs(got - episode["convergenceSeconds"]) <= BUCKET_S, (got, episode["convergenceSeconds"])
         else:
             assert value["convergenceSeconds"] is None
-    # Ground truth "background" (wred, bad-ttl) and anything else: unaffected.
     for key, value in values.items():
         if key not in episodes:
             assert value["class"] == "unaffected", value["evidence"]
+    expected = "still-dropping" if any(e["expectedClass"] == "persistent" for e in t["episodes"]) else (
+        "new-drops" if any(e["expectedClass"] == "new" for e in t["episodes"]) else (
+            "recovered" if t["episodes"] else "no-change"))
+    assert result["verdict"] == expected
+
+
+@pytest.mark.parametrize("capture", CAPTURES)
+def test_episodes_get_their_class_and_convergence(capture):
+    check_against_truth(compare_json(capture), truth(capture))
+
+
+# Fresh captures from the generator (other seeds, the default 120,000
+# records), each checked against the ground truth it writes.
+FRESH = [
+    ("regional-carrier", 11, "16000"),
+    ("regional-carrier", 12, "16000"),
+    ("regional-carrier", 13, "16000"),
+    ("regional-carrier", 21, None),
+    ("regional-carrier-quiet", 22, None),
+    ("regional-carrier-quiet", 23, "6000"),
+]
+
+
+@pytest.mark.parametrize("scenario,seed,records", FRESH)
+def test_fresh_seeds_against_their_truth(tmp_path, scenario, seed, records):
+    capture = tmp_path / f"{scenario}-{seed}.pcapng"
+    args = ["synth", "--scenario", scenario, "-o", str(capture), "--seed", str(seed)]
+    if records:
+        args += ["--records", records]
+    run(*args)
+    result = json.loads(run("compare", str(capture), "--window", WINDOW, "--format", "json").stdout)
+    check_against_truth(result, json.loads(pathlib.Path(f"{capture}.truth.json").read_text()))
 
 
 @pytest.mark.parametrize("capture", CAPTURES)
@@ -128,7 +156,7 @@ def test_json_shape_is_stable():
     assert result["dimensions"] == ["domain", "reason"] or len(result["dimensions"]) == 2
     assert result["thresholds"] == {
         "baselineSeconds": 1200, "afterSeconds": None, "everySeconds": 60,
-        "stableBuckets": 3, "alpha": 0.05, "minIncrease": 0.01,
+        "stableBuckets": 3, "alpha": 0.01, "minIncrease": 0.01,
     }
     value = result["values"][0]
     for key in ("key", "label", "class", "topReason", "before", "during", "after", "duringTest", "afterTest",
@@ -136,14 +164,14 @@ def test_json_shape_is_stable():
                 "evidence", "series"):
         assert key in value, key
     for key in ("droppedPackets", "totalPackets", "sampledDropped", "sampledTotal", "flowRecords",
-                "dropRatio", "ratioLow", "ratioHigh"):
+                "droppedRecords", "variance", "effectiveN", "dropRatio", "ratioLow", "ratioHigh"):
         assert key in value["before"], key
-    assert "Wilson" in result["method"] and "7.3.3" in result["method"]
+    assert "Wilson" in result["method"] and "7.3.3" in result["method"] and "Cochran" in result["method"]
 
 
 def test_statistics_match_statsmodels():
-    """statsmodels: Wilson interval and one-sided pooled two-proportion z-test
-    on (ratio x records, records), the effective sample size the method states."""
+    """statsmodels: Wilson interval on (ratio x effectiveN, effectiveN), and the
+    one-sided pooled two-proportion z-test on (droppedRecords, flowRecords)."""
     result = compare_json("regional-carrier.pcapng")
     checked = 0
     for value in result["values"]:
@@ -151,7 +179,7 @@ def test_statistics_match_statsmodels():
             period = value[name]
             if period["dropRatio"] is None:
                 continue
-            n = period["flowRecords"]
+            n = period["effectiveN"]
             x = period["dropRatio"] * n
             low, high = proportion_confint(x, n, alpha=0.05, method="wilson")
             # 1.96 vs the exact quantile 1.959964: differences below 1e-4.
@@ -161,7 +189,7 @@ def test_statistics_match_statsmodels():
             if test["z"] is None:
                 continue
             b, later = value["before"], value[name]
-            xs = [later["dropRatio"] * later["flowRecords"], b["dropRatio"] * b["flowRecords"]]
+            xs = [later["droppedRecords"], b["droppedRecords"]]
             ns = [later["flowRecords"], b["flowRecords"]]
             z, p = proportions_ztest(xs, ns, alternative="larger")
             assert math.isclose(z, test["z"], rel_tol=1e-9, abs_tol=1e-9), (value["label"], z, test["z"])
@@ -205,3 +233,23 @@ def test_period_counts_match_duckdb(parquet):
         assert (period["sampledTotal"], period["sampledDropped"], period["flowRecords"]) == tuple(
             int(v or 0) for v in row
         ), name
+        # Ratio-estimator variance over records, n/(n-1) * sum((k - p t)^2) / (sum t)^2
+        # (Cochran 1977, ch. 6), recomputed record by record in DuckDB.
+        (var, dropped_records) = con.execute(
+            f"""
+            WITH r AS (
+              SELECT coalesce(packetDeltaCount, 0) AS t,
+                     CASE WHEN forwardingReason = 'policer' THEN coalesce(packetDeltaCount, 0) ELSE 0 END AS k
+              FROM read_parquet('{parquet}')
+              WHERE observationDomainId = 1102
+                AND coalesce(flowEndTime, exportTime) >= TIMESTAMPTZ '{lo}+00'
+                AND coalesce(flowEndTime, exportTime) < TIMESTAMPTZ '{hi}+00'),
+            s AS (SELECT sum(k)::DOUBLE / sum(t) AS p, sum(t)::DOUBLE AS st, count(*)::DOUBLE AS n FROM r)
+            SELECT (SELECT n FROM s) / ((SELECT n FROM s) - 1)
+                   * sum(power(k - (SELECT p FROM s) * t, 2)) / power((SELECT st FROM s), 2),
+                   count(*) FILTER (WHERE k > 0)
+            FROM r
+            """
+        ).fetchone()
+        assert period["droppedRecords"] == dropped_records, name
+        assert math.isclose(period["variance"], var, rel_tol=1e-9, abs_tol=1e-15), (name, period["variance"], var)

@@ -136,4 +136,4 @@ def test_report_in_chromium(chromium, report, tmp_path):
     # Caution, thresholds and method with its sources.
     assert "estimates from sampled flow exports" in dom and "operator decides" in dom
     assert "stable buckets" in dom and "min increase" in dom
-    assert "Wilson" in dom and "7.3.3" in dom and "Bonferroni" in dom
+    assert "Wilson" in dom and "7.3.3" in dom and "Cochran" in dom

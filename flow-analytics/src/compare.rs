@@ -68,7 +68,7 @@
 //!
 //! - `unaffected`: neither during nor after is significantly above before;
 //! - `transient`: during is, after is not (or it converged later and the
-//!   rest of the after period is not);
+//!   rest of the after period is not), and a stable in-band run was seen;
 //! - `persistent`: during and after are, without convergence;
 //! - `new`: only after is.
 
@@ -540,7 +540,14 @@ impl CompareQuery {
             .filter(|v| v.class != Class::Unaffected)
             .map(|v| v.evidence.clone())
             .collect();
-        if evidence.is_empty() {
+        let data_after = cells.last_bucket.is_some_and(|last| last >= we);
+        if !data_after {
+            evidence.push(
+                "no data after the window: transient and persistent cannot be told apart; the after period is empty"
+                    .to_string(),
+            );
+        }
+        if values.iter().all(|v| v.class == Class::Unaffected) {
             evidence.push(format!(
                 "{} value(s) compared; none rose significantly (one-sided z-test, alpha {}, min rise {:.2} points) during or after the window",
                 values.len(),
@@ -626,10 +633,14 @@ impl CompareQuery {
                 .zip(&per)
                 .position(|(b, x)| *b >= from && elevated(x))
         };
+        // Only buckets up to the last one with data can show convergence.
+        let usable = cells
+            .last_bucket
+            .map_or(0, |last| buckets.iter().take_while(|b| **b <= last).count());
         let converged_after = |onset: usize| -> Option<usize> {
             let s = t.stable_buckets;
-            (onset + 1..per.len()).find(|&i| {
-                i + s <= per.len() && per.get(i..i + s).is_some_and(|run| run.iter().all(|x| !elevated(x)))
+            (onset + 1..usable).find(|&i| {
+                i + s <= usable && per.get(i..i + s).is_some_and(|run| run.iter().all(|x| !elevated(x)))
             })
         };
 
@@ -670,6 +681,11 @@ impl CompareQuery {
         }
         if class == Class::New {
             converged_idx = None;
+        }
+        // A rise that never came back within the band (e.g. the data ends
+        // before the window does) is not shown to have recovered.
+        if class == Class::Transient && converged_idx.is_none() {
+            class = Class::Persistent;
         }
         let at = |i: Option<usize>| i.and_then(|i| buckets.get(i).copied());
         let onset = at(onset_idx);

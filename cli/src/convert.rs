@@ -87,8 +87,8 @@ pub struct ConvertArgs {
     #[arg(long, value_name = "CODEC", default_value = "zstd")]
     pub compression: String,
 
-    /// Rows per row group (also the unit of memory: about three row groups
-    /// are held at once).
+    /// Rows per row group. Memory does not depend on it much: records go
+    /// to the writer in batches of at most 32,768 rows.
     #[arg(long, value_name = "N", default_value_t = SinkOptions::default().row_group_rows)]
     pub row_group_rows: usize,
 

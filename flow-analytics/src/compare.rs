@@ -72,6 +72,42 @@
 //! - `persistent`: during and after are, without convergence;
 //! - `new`: only after is.
 
+//!
+//! # JSON shape (`flowsift compare --format json`, version 1)
+//!
+//! One object, [`Comparison`] serialized with camelCase keys. Fields are
+//! only added, never renamed or removed, while `version` is 1:
+//!
+//! ```text
+//! { "version": 1,
+//!   "verdict": "still-dropping" | "new-drops" | "recovered" | "no-change",
+//!   "headline": str, "evidence": [str], "counts": {class: n},
+//!   "dimensions": [str],
+//!   "window" | "before" | "after": {"start": RFC 3339, "end": RFC 3339},
+//!   "thresholds": {"baselineSeconds", "afterSeconds" (null = to the end),
+//!                  "everySeconds", "stableBuckets", "alpha", "minIncrease"},
+//!   "testAlpha": f64, "method": str, "caution": str,
+//!   "buckets": [ms since 1970],
+//!   "reasons": [{"reason", "droppedPackets": [u64 per bucket],
+//!                "rate": [f64|null per bucket]}],
+//!   "values": [{"key": [str per dimension], "label", "class":
+//!               "persistent" | "new" | "transient" | "unaffected",
+//!               "topReason", "before" | "during" | "after": {
+//!                 "droppedPackets", "totalPackets" (estimated, × N),
+//!                 "sampledDropped", "sampledTotal", "flowRecords",
+//!                 "droppedRecords", "variance", "effectiveN",
+//!                 "dropRatio", "ratioLow", "ratioHigh"},
+//!               "duringTest" | "afterTest": {"z", "pValue", "increase",
+//!                                            "significant"},
+//!               "bandHigh", "onset", "convergedAt" (RFC 3339 | null),
+//!               "convergenceSeconds", "sinceWindowStartSeconds",
+//!               "evidence", "series": [{"startMs", "ratio",
+//!                                       "droppedPackets"}]}] }
+//! ```
+//!
+//! `values` are ordered persistent, new, transient, unaffected, then by
+//! estimated dropped packets during and after the window.
+
 use std::collections::{BTreeMap, BTreeSet};
 use std::path::PathBuf;
 use std::time::Duration as StdDuration;

@@ -137,3 +137,12 @@ def test_report_in_chromium(chromium, report, tmp_path):
     assert "estimates from sampled flow exports" in dom and "operator decides" in dom
     assert "stable buckets" in dom and "min increase" in dom
     assert "Wilson" in dom and "7.3.3" in dom and "Cochran" in dom
+
+
+def test_report_prints(chromium, report, tmp_path):
+    """Chromium's print path (print styles) yields a PDF without console errors."""
+    pdf = tmp_path / "compare-report.pdf"
+    _, console = browse(chromium, report[0], tmp_path / "p3", f"--print-to-pdf={pdf}", "--no-pdf-header-footer")
+    assert console == [], console
+    data = pdf.read_bytes()
+    assert data[:5] == b"%PDF-" and len(data) > 10_000

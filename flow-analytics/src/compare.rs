@@ -1149,6 +1149,102 @@ fn erfc(x: f64) -> f64 {
 mod tests {
     use super::*;
 
+    /// Minute-by-minute records of one place with planted episodes; the
+    /// expected classes and times are those planted here (the same shapes
+    /// as the demo scenario's ground truth).
+    fn planted() -> Result<(tempfile::TempDir, std::path::PathBuf), Box<dyn std::error::Error>> {
+        use polars::prelude::*;
+        let t0: i64 = 1_795_998_600; // 2026-11-30T00:30:00Z
+        let (mut dom, mut why, mut outcome, mut pk, mut rate, mut ts) =
+            (Vec::new(), Vec::new(), Vec::new(), Vec::new(), Vec::new(), Vec::new());
+        let mut push = |minute: i64, second: i64, reason: Option<&'static str>| {
+            dom.push(1u32);
+            why.push(reason);
+            outcome.push(if reason.is_some() { "dropped" } else { "forwarded" });
+            pk.push(3u64);
+            rate.push(100u32);
+            ts.push((t0 + minute * 60 + second) * 1_000_000_000);
+        };
+        for minute in 0..60i64 {
+            for i in 0..50 {
+                push(minute, i, None);
+            }
+            let planted = match minute {
+                25 | 26 => Some("adjacency"), // 00:55-00:57, inside the window
+                m if m >= 32 => Some("policer"), // from 01:02, on past the window
+                _ => None,
+            };
+            if let Some(reason) = planted {
+                for i in 0..10 {
+                    push(minute, 50 + i, Some(reason));
+                }
+            }
+            if minute >= 52 {
+                for i in 0..10 {
+                    push(minute, 45 + i, Some("acl-deny")); // from 01:22
+                }
+            }
+            if minute % 10 == 3 {
+                push(minute, 59, Some("wred")); // background
+            }
+        }
+        let mut frame = df!(
+            "observationDomainId" => dom,
+            "forwardingReason" => why,
+            "forwardingOutcome" => outcome,
+            "packetDeltaCount" => pk,
+            "samplingRate" => rate,
+        )?;
+        let times = Series::new("flowEndTime".into(), ts).cast(&crate::contract::time_dtype())?;
+        frame.with_column(times.into_column())?;
+        let dir = tempfile::tempdir()?;
+        let path = dir.path().join("planted.parquet");
+        ParquetWriter::new(std::fs::File::create(&path)?).finish(&mut frame)?;
+        Ok((dir, path))
+    }
+
+    #[test]
+    fn planted_episodes_are_classified() -> Result<(), Box<dyn std::error::Error>> {
+        let (_dir, path) = planted()?;
+        let start = crate::parse_time("2026-11-30T00:50:00Z")?;
+        let end = crate::parse_time("2026-11-30T01:10:00Z")?;
+        let result = CompareQuery::new([path], start, end).run()?;
+        let find = |reason: &str| {
+            result
+                .values
+                .iter()
+                .find(|v| v.key == ["1".to_string(), reason.to_string()])
+                .cloned()
+        };
+        let adjacency = find("adjacency").ok_or("no adjacency")?;
+        assert_eq!(adjacency.class, Class::Transient, "{}", adjacency.evidence);
+        assert_eq!(adjacency.onset.as_deref(), Some("2026-11-30T00:55:00Z"));
+        assert_eq!(adjacency.convergence_seconds, Some(120.0));
+        assert_eq!(adjacency.since_window_start_seconds, Some(420.0));
+        let policer = find("policer").ok_or("no policer")?;
+        assert_eq!(policer.class, Class::Persistent, "{}", policer.evidence);
+        assert_eq!(policer.onset.as_deref(), Some("2026-11-30T01:02:00Z"));
+        let acl = find("acl-deny").ok_or("no acl-deny")?;
+        assert_eq!(acl.class, Class::New, "{}", acl.evidence);
+        assert_eq!(acl.onset.as_deref(), Some("2026-11-30T01:22:00Z"));
+        let wred = find("wred").ok_or("no wred")?;
+        assert_eq!(wred.class, Class::Unaffected, "{}", wred.evidence);
+        assert_eq!(result.verdict, Verdict::StillDropping);
+        // Estimates are scaled 1-in-100: 20 records × 3 packets × 100.
+        assert_eq!(adjacency.during.dropped_packets, 6_000);
+        assert_eq!(adjacency.during.dropped_records, 20);
+        Ok(())
+    }
+
+    #[test]
+    fn bad_settings_are_errors() {
+        let start = crate::parse_time("2026-11-30T00:50:30Z").ok();
+        let end = crate::parse_time("2026-11-30T01:10:00Z").ok();
+        let (Some(start), Some(end)) = (start, end) else { return };
+        assert!(CompareQuery::new(["x.parquet"], start, end).run().is_err());
+        assert!(CompareQuery::new(["x.parquet"], end, start).run().is_err());
+    }
+
     #[test]
     fn normal_tail_matches_tables() {
         // Standard normal table values (NIST/SEMATECH e-Handbook §1.3.6.7.1):

@@ -352,6 +352,8 @@ pub struct InspectReport {
     pub totals: Totals,
     /// Per exporter and domain.
     pub exporters: Vec<ExporterView>,
+    /// The first malformed messages, with where they are.
+    pub malformed_examples: Vec<pipeline::MalformedExample>,
     /// Problems worth knowing.
     pub warnings: Vec<String>,
 }
@@ -449,6 +451,7 @@ fn build_report(acc: Accounting, mut collector: Collector) -> InspectReport {
             capture: acc.capture.clone(),
         },
         exporters,
+        malformed_examples: acc.malformed_examples.clone(),
         warnings: acc.warnings.clone(),
     }
 }
@@ -600,6 +603,15 @@ pub fn write_table(out: &mut impl Write, r: &InspectReport, fields: bool) -> std
             for rj in &d.rejected_templates {
                 writeln!(out, "    REJECTED template {} at message #{} of {}: {}", rj.template_id, rj.at.message, rj.at.input, rj.problem)?;
             }
+        }
+    }
+    if !r.malformed_examples.is_empty() {
+        writeln!(out)?;
+        writeln!(out, "MALFORMED MESSAGES (first {})", r.malformed_examples.len())?;
+        for m in &r.malformed_examples {
+            let domain = m.observation_domain_id.map(|d| format!(", domain {d}")).unwrap_or_default();
+            let when = m.captured.as_ref().map(|c| format!(", captured {c}")).unwrap_or_default();
+            writeln!(out, "  {} message #{} ({}{domain}{when}): {}", m.input, m.message, m.session, m.detail)?;
         }
     }
     for w in &r.warnings {

@@ -52,7 +52,7 @@ mod accounting;
 mod progress;
 mod twopass;
 
-pub use accounting::{rfc3339, Accounting, BytesReport, CaptureReport, DomainReport, InputReport, SessionReport, TemplateReport};
+pub use accounting::{rfc3339, Accounting, BytesReport, MalformedExample, CaptureReport, DomainReport, InputReport, SessionReport, TemplateReport};
 pub use progress::Progress;
 pub use twopass::{convert, options_path_for, ConvertOutcome, ConvertSettings, PassSeconds, TableSummary};
 
@@ -263,7 +263,7 @@ impl Runner {
                                 acc.after_decode(&decoder, before, index, &session, &header, received);
                             }
                             Err(err) => {
-                                acc.malformed(index, &data, &err);
+                                acc.malformed(index, message, received, &data, &err);
                                 if self.strict {
                                     return Err(StrictViolation(format!(
                                         "input {}, IPFIX message #{message}{}: {err}",

@@ -516,4 +516,11 @@ def test_inspect_loss_and_malformed(tmp_path):
     assert dom["recordsSkipped"] == 10
     assert dom["recordsDecoded"] == 40 + 3
     assert rep["exporters"][0]["exporter"] == f"{EXPORTER}:50000"
+    # The bad message is located: input, message number, reason, offset.
+    ex = rep["malformedExamples"]
+    assert len(ex) == 1 and ex[0]["message"] == 3 and ex[0]["reason"] == "bad-set-length"
+    assert ex[0]["input"] == str(cap) and ex[0]["observationDomainId"] == 7
+    assert "offset 16" in ex[0]["detail"]
+    text = run("inspect", cap).stdout.decode()
+    assert "MALFORMED MESSAGES" in text and "message #3" in text
     assert rep["exporters"][0]["collector"] == f"{COLLECTOR}:4739"

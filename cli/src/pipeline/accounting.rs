@@ -71,6 +71,9 @@ pub struct Accounting {
     pub capture: CaptureReport,
     /// Per Transport Session, with its Observation Domains.
     pub exporters: Vec<SessionReport>,
+    /// The first malformed messages (at most [`MALFORMED_EXAMPLES`]), to
+    /// find them in the capture.
+    pub malformed_examples: Vec<MalformedExample>,
     /// Things the user should know (damaged inputs, sets that never found
     /// their template, ...).
     pub warnings: Vec<String>,
@@ -87,6 +90,29 @@ pub struct Accounting {
     order: Vec<TransportSession>,
     #[serde(skip)]
     domain_snapshots: usize,
+}
+
+/// Most malformed messages listed with their place.
+pub const MALFORMED_EXAMPLES: usize = 20;
+
+/// Where a malformed message was, and what was wrong with it.
+#[derive(Debug, Clone, Serialize)]
+#[serde(rename_all = "camelCase")]
+pub struct MalformedExample {
+    /// The input.
+    pub input: String,
+    /// 1-based IPFIX Message number within the input.
+    pub message: u64,
+    /// Capture time (RFC 3339), when the capture has one.
+    pub captured: Option<String>,
+    /// The Transport Session, as text.
+    pub session: String,
+    /// The Observation Domain, when the header could be read.
+    pub observation_domain_id: Option<u32>,
+    /// The reason name (as in `malformedByReason`).
+    pub reason: &'static str,
+    /// What and where (byte offset within the message).
+    pub detail: String,
 }
 
 /// Octet counts.
@@ -442,8 +468,19 @@ impl Accounting {
     }
 
     /// Notes a message the decoder discarded.
-    pub(crate) fn malformed(&mut self, input: usize, data: &[u8], err: &MessageError) {
+    pub(crate) fn malformed(&mut self, input: usize, message: u64, received: Option<Duration>, data: &[u8], err: &MessageError) {
         let reason = err.problem.reason();
+        if self.malformed_examples.len() < MALFORMED_EXAMPLES {
+            self.malformed_examples.push(MalformedExample {
+                input: self.inputs.get(input).map(|i| i.path.clone()).unwrap_or_default(),
+                message,
+                captured: received.map(|t| rfc3339(t.as_secs())),
+                session: err.session.to_string(),
+                observation_domain_id: err.domain.map(|d| d.0),
+                reason,
+                detail: err.problem.to_string(),
+            });
+        }
         let Some(domain) = err.domain else {
             // Without a readable header the domain is unknown: counted on
             // the session itself.

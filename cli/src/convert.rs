@@ -332,6 +332,9 @@ pub fn write_summary(out: &mut impl Write, o: &ConvertOutcome) -> std::io::Resul
     s += &line("sets skipped", a.sets_skipped, reasons(&a.sets_skipped_by_reason));
     s += &line("lost (sequence gaps)", a.sequence_gap_records, String::new());
     s += &line("malformed messages", a.messages_malformed, reasons(&a.malformed_by_reason));
+    if let Some(m) = a.malformed_examples.first() {
+        s += &format!("    first: {} message #{}: {}\n", m.input, m.message, m.detail);
+    }
     s += &line(
         "templates learned",
         a.templates.learned,

@@ -12,7 +12,7 @@ use anyhow::{bail, Context};
 use flow_analytics::compare::{pct, Class, CompareQuery, Comparison, Thresholds};
 use flow_analytics::{parse_duration, parse_time, Dimension};
 
-use crate::drops::{check_input, decode_into, InputKind};
+use crate::drops::{decode_into, split_inputs, SplitInputs};
 
 const AFTER_HELP: &str = "\
 Periods: before = the --baseline span just before the window; during = the
@@ -184,24 +184,7 @@ impl TryFrom<CompareArgs> for CompareConfig {
                 }
             }
         }
-        let mut inputs = Vec::new();
-        let mut captures = Vec::new();
-        for input in &args.inputs {
-            match check_input(input)? {
-                InputKind::Parquet(path) => inputs.push(path),
-                InputKind::Capture => captures.push(input.clone()),
-            }
-        }
-        let scratch = if captures.is_empty() {
-            None
-        } else {
-            let dir = tempfile::Builder::new()
-                .prefix("flowsift-compare-")
-                .tempdir()
-                .context("cannot create a temporary directory")?;
-            inputs.push(dir.path().join("captures.parquet"));
-            Some(dir)
-        };
+        let SplitInputs { parquet: inputs, captures, scratch } = split_inputs(&args.inputs, "flowsift-compare-")?;
         let by = Dimension::parse_list(&args.by).context("--by")?;
         let mut query = CompareQuery::new(inputs, start, end).with_by(by).with_thresholds(thresholds);
         if let Some(filter) = args.filter {

@@ -141,21 +141,7 @@ impl TryFrom<DropsArgs> for DropsConfig {
     type Error = anyhow::Error;
 
     fn try_from(args: DropsArgs) -> anyhow::Result<Self> {
-        let mut inputs = Vec::new();
-        let mut captures = Vec::new();
-        for input in &args.inputs {
-            match check_input(input)? {
-                InputKind::Parquet(path) => inputs.push(path),
-                InputKind::Capture => captures.push(input.clone()),
-            }
-        }
-        let scratch = if captures.is_empty() {
-            None
-        } else {
-            let dir = tempfile::Builder::new().prefix("flowsift-drops-").tempdir().context("cannot create a temporary directory")?;
-            inputs.push(dir.path().join("captures.parquet"));
-            Some(dir)
-        };
+        let SplitInputs { parquet: inputs, captures, scratch } = split_inputs(&args.inputs, "flowsift-drops-")?;
         let by = Dimension::parse_list(&args.by).context("--by")?;
         let mut query = DropQuery::new(inputs)
             .with_by(by)
@@ -225,6 +211,38 @@ fn decode_captures(config: &DropsConfig) -> anyhow::Result<()> {
 
 /// Decodes `captures` into `captures.parquet` in `scratch` (nothing when
 /// `scratch` is `None`); shared with `compare`.
+/// Inputs sorted into Parquet (read by the query) and captures (decoded
+/// first into `captures.parquet` in `scratch`, which is already listed among
+/// the Parquet inputs).
+pub(crate) struct SplitInputs {
+    /// Parquet files, directories and globs, plus the scratch file.
+    pub parquet: Vec<PathBuf>,
+    /// Capture inputs as given.
+    pub captures: Vec<String>,
+    /// Where the decoded captures go; removed when dropped.
+    pub scratch: Option<tempfile::TempDir>,
+}
+
+/// Sorts command-line inputs (see [`SplitInputs`]).
+pub(crate) fn split_inputs(raw: &[String], prefix: &str) -> anyhow::Result<SplitInputs> {
+    let mut parquet = Vec::new();
+    let mut captures = Vec::new();
+    for input in raw {
+        match check_input(input)? {
+            InputKind::Parquet(path) => parquet.push(path),
+            InputKind::Capture => captures.push(input.clone()),
+        }
+    }
+    let scratch = if captures.is_empty() {
+        None
+    } else {
+        let dir = tempfile::Builder::new().prefix(prefix).tempdir().context("cannot create a temporary directory")?;
+        parquet.push(dir.path().join("captures.parquet"));
+        Some(dir)
+    };
+    Ok(SplitInputs { parquet, captures, scratch })
+}
+
 pub(crate) fn decode_into(scratch: Option<&tempfile::TempDir>, captures: &[String]) -> anyhow::Result<()> {
     let Some(dir) = scratch else { return Ok(()) };
     let inputs = crate::pipeline::Inputs::open(captures)?;

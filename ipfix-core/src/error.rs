@@ -181,6 +181,9 @@ pub enum SkipReason {
     ReservedSetId,
     /// Too many Transport Sessions (`Config::max_sessions`).
     SessionLimit,
+    /// A buffered Data Set whose lengths did not fit its template once the
+    /// template arrived (its message had been accepted before).
+    MalformedWhenReplayed,
 }
 
 impl SkipReason {
@@ -192,6 +195,7 @@ impl SkipReason {
             Self::PendingBufferFull => "pending-buffer-full",
             Self::ReservedSetId => "reserved-set-id",
             Self::SessionLimit => "session-limit",
+            Self::MalformedWhenReplayed => "malformed-when-replayed",
         }
     }
 }

@@ -1003,7 +1003,9 @@ fn define<'a>(
                 }));
             }
             Err(_) => {
-                pass.stats.skip(SkipReason::UnknownTemplate, p.data.len());
+                // The earlier message was accepted before its template was
+                // known; only now do its lengths turn out not to fit.
+                pass.stats.skip(SkipReason::MalformedWhenReplayed, p.data.len());
                 pass.dstats.sets_skipped += 1;
             }
         }

@@ -741,3 +741,22 @@ fn encoder_refuses_lengths_the_type_forbids() {
     assert!(matches!(enc.add_template(t), Err(EncodeError::ElementIdOutOfRange { id: 0x8001, .. })));
     assert!(enc.is_empty());
 }
+
+/// RFC 7011 §9.3 lets a collector keep records whose template is unknown and
+/// decode them once it arrives. A buffered set whose lengths then turn out
+/// not to fit (its message was accepted before the template was known) is
+/// skipped and counted under its own reason, never silently dropped.
+#[test]
+fn buffered_set_that_does_not_fit_its_template_is_counted() {
+    let mut decoder = Decoder::new(Config::default());
+    let session = tcp();
+    // interfaceName (IE 82) variable-length: the record says 5 octets follow,
+    // only 1 does (RFC 7011 §7).
+    let early = message(9, 0, 1_764_633_600, &[set(256, &[0x05, b'x'])]);
+    assert!(decoder.decode(&session, None, &early).is_ok());
+    assert_eq!(decoder.stats().sets_buffered, 1);
+    let template = message(9, 1, 1_764_633_601, &[set(2, &tpl(256, &[(82, 65535)]))]);
+    assert!(decoder.decode(&session, None, &template).is_ok());
+    assert_eq!(decoder.stats().sets_skipped.get("malformed-when-replayed"), Some(&1));
+    assert_eq!(decoder.stats().records_decoded, 0);
+}

@@ -269,7 +269,7 @@ impl DropQuery {
     /// not parse or is not boolean, an empty time range or zero bucket
     /// width, or a polars failure.
     pub fn run(&self) -> Result<DropTable, Error> {
-        let prepared = self.prepare()?;
+        let prepared = self.prepare(false)?;
         let Prepared {
             stage1,
             plans,
@@ -338,13 +338,14 @@ impl DropQuery {
     /// # Errors
     /// As [`run`](Self::run), short of executing the query.
     pub fn explain(&self) -> Result<String, Error> {
-        Ok(self.prepare()?.stage1.describe_optimized_plan()?)
+        Ok(self.prepare(false)?.stage1.describe_optimized_plan()?)
     }
 
     /// Validates the query, opens the inputs and builds the lazy stage-1
     /// plan: records scanned, filtered, and grouped by dimensions, bucket
-    /// and reason.
-    fn prepare(&self) -> Result<Prepared, Error> {
+    /// and reason. `with_moments` adds the second moments that `compare`
+    /// needs for its ratio-estimator variance (drops skips them).
+    fn prepare(&self, with_moments: bool) -> Result<Prepared, Error> {
         let every_ns = self.every.map(every_nanos).transpose()?;
         let from_ns = self.from.map(|t| time_nanos(&t)).transpose()?;
         let to_ns = self.to.map(|t| time_nanos(&t)).transpose()?;
@@ -459,7 +460,7 @@ impl DropQuery {
             .collect();
 
         // Stage 1: one row per group and reason (and bucket).
-        let mut aggs = stage1_aggs();
+        let mut aggs = stage1_aggs(with_moments);
         aggs.extend(companion_aggs(&companions));
         let stage1 = lf
             .with_columns(derived)
@@ -532,7 +533,7 @@ pub(crate) const SUM_KT: &str = A_KT;
 impl DropQuery {
     /// Runs stage 1 only (see [`Stage1Rows`]).
     pub(crate) fn stage1_rows(&self) -> Result<Stage1Rows, Error> {
-        let prepared = self.prepare()?;
+        let prepared = self.prepare(true)?;
         Ok(Stage1Rows {
             frame: collect_streaming(prepared.stage1)?,
             plans: prepared.plans,
@@ -619,9 +620,10 @@ fn record_measures(record_time: Expr) -> Vec<Expr> {
     ]
 }
 
-/// Stage-1 aggregations over records.
-fn stage1_aggs() -> Vec<Expr> {
-    vec![
+/// Stage-1 aggregations over records; `with_moments` adds the records that
+/// dropped and the second moments used by `compare`.
+fn stage1_aggs(with_moments: bool) -> Vec<Expr> {
+    let mut aggs = vec![
         col(W_DP).sum().alias(DROPPED_PACKETS),
         col(W_DO).sum().alias(DROPPED_OCTETS),
         col(W_TP).sum().alias(TOTAL_PACKETS),
@@ -629,23 +631,22 @@ fn stage1_aggs() -> Vec<Expr> {
         len().cast(DataType::UInt64).alias(FLOW_RECORDS),
         col(W_K).sum().alias(A_SAMPLED),
         col(W_T).sum().alias(A_SAMPLED_TOTAL),
-        col(W_K).gt(lit(0u64)).cast(DataType::UInt64).sum().alias(A_DROP_RECORDS),
-        // Second moments for the ratio-estimator variance of `compare`.
-        (col(W_K).cast(DataType::Float64) * col(W_K).cast(DataType::Float64))
-            .sum()
-            .alias(A_KK),
-        (col(W_T).cast(DataType::Float64) * col(W_T).cast(DataType::Float64))
-            .sum()
-            .alias(A_TT),
-        (col(W_K).cast(DataType::Float64) * col(W_T).cast(DataType::Float64))
-            .sum()
-            .alias(A_KT),
         col(W_VAR).sum().alias(W_VAR),
         col(W_KNOWN).sum().alias(W_KNOWN),
         col(W_N).max().alias(A_MAX_RATE),
         col(W_TIME).min().alias(A_FIRST),
         col(W_TIME).max().alias(A_LAST),
-    ]
+    ];
+    if with_moments {
+        let f = |c: &str| col(c).cast(DataType::Float64);
+        aggs.extend([
+            col(W_K).gt(lit(0u64)).cast(DataType::UInt64).sum().alias(A_DROP_RECORDS),
+            (f(W_K) * f(W_K)).sum().alias(A_KK),
+            (f(W_T) * f(W_T)).sum().alias(A_TT),
+            (f(W_K) * f(W_T)).sum().alias(A_KT),
+        ]);
+    }
+    aggs
 }
 
 /// First non-null value of each carried column.

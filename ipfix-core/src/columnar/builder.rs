@@ -105,6 +105,32 @@ impl Ipv4Texts {
     }
 }
 
+/// Runs `$e` with `$b` bound to whichever typed builder a [`Scalar`] holds.
+macro_rules! each_builder {
+    ($scalar:expr, $b:ident => $e:expr) => {
+        match $scalar {
+            Scalar::U8($b) => $e,
+            Scalar::U16($b) => $e,
+            Scalar::U32($b) => $e,
+            Scalar::U64($b) => $e,
+            Scalar::I8($b) => $e,
+            Scalar::I16($b) => $e,
+            Scalar::I32($b) => $e,
+            Scalar::I64($b) => $e,
+            Scalar::F32($b) => $e,
+            Scalar::F64($b) => $e,
+            Scalar::Bool($b) => $e,
+            Scalar::Utf8($b) => $e,
+            Scalar::Binary($b) => $e,
+            Scalar::Fsb($b) => $e,
+            Scalar::TsS($b) => $e,
+            Scalar::TsMs($b) => $e,
+            Scalar::TsUs($b) => $e,
+            Scalar::TsNs($b) => $e,
+        }
+    };
+}
+
 macro_rules! append_or_null {
     ($b:expr, $v:expr, $stats:expr, $counter:ident) => {
         match $v {
@@ -152,72 +178,15 @@ impl Scalar {
     }
 
     fn builder(&self) -> &dyn ArrayBuilder {
-        match self {
-            Self::U8(b) => b,
-            Self::U16(b) => b,
-            Self::U32(b) => b,
-            Self::U64(b) => b,
-            Self::I8(b) => b,
-            Self::I16(b) => b,
-            Self::I32(b) => b,
-            Self::I64(b) => b,
-            Self::F32(b) => b,
-            Self::F64(b) => b,
-            Self::Bool(b) => b,
-            Self::Utf8(b) => b,
-            Self::Binary(b) => b,
-            Self::Fsb(b) => b,
-            Self::TsS(b) => b,
-            Self::TsMs(b) => b,
-            Self::TsUs(b) => b,
-            Self::TsNs(b) => b,
-        }
+        each_builder!(self, b => b)
     }
 
     fn builder_mut(&mut self) -> &mut dyn ArrayBuilder {
-        match self {
-            Self::U8(b) => b,
-            Self::U16(b) => b,
-            Self::U32(b) => b,
-            Self::U64(b) => b,
-            Self::I8(b) => b,
-            Self::I16(b) => b,
-            Self::I32(b) => b,
-            Self::I64(b) => b,
-            Self::F32(b) => b,
-            Self::F64(b) => b,
-            Self::Bool(b) => b,
-            Self::Utf8(b) => b,
-            Self::Binary(b) => b,
-            Self::Fsb(b) => b,
-            Self::TsS(b) => b,
-            Self::TsMs(b) => b,
-            Self::TsUs(b) => b,
-            Self::TsNs(b) => b,
-        }
+        each_builder!(self, b => b)
     }
 
     pub(crate) fn append_nulls(&mut self, n: usize) {
-        match self {
-            Self::U8(b) => b.append_nulls(n),
-            Self::U16(b) => b.append_nulls(n),
-            Self::U32(b) => b.append_nulls(n),
-            Self::U64(b) => b.append_nulls(n),
-            Self::I8(b) => b.append_nulls(n),
-            Self::I16(b) => b.append_nulls(n),
-            Self::I32(b) => b.append_nulls(n),
-            Self::I64(b) => b.append_nulls(n),
-            Self::F32(b) => b.append_nulls(n),
-            Self::F64(b) => b.append_nulls(n),
-            Self::Bool(b) => b.append_nulls(n),
-            Self::Utf8(b) => b.append_nulls(n),
-            Self::Binary(b) => b.append_nulls(n),
-            Self::Fsb(b) => b.append_nulls(n),
-            Self::TsS(b) => b.append_nulls(n),
-            Self::TsMs(b) => b.append_nulls(n),
-            Self::TsUs(b) => b.append_nulls(n),
-            Self::TsNs(b) => b.append_nulls(n),
-        }
+        each_builder!(self, b => b.append_nulls(n))
     }
 
     /// Appends a field's octets decoded by `decode` (the hot path: no

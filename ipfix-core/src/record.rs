@@ -387,6 +387,23 @@ impl<'a> Iterator for Fields<'a> {
     }
 }
 
+/// Length of the record starting at `pos` in `data`, walking only the
+/// field lengths. For records already checked by [`record_len`] when their
+/// message was accepted, so nested lists are not validated a second time on
+/// the decode path; still bounds-checked (`None` on overrun).
+#[inline]
+pub(crate) fn record_span(plan: &Plan, data: &[u8], pos: usize) -> Option<usize> {
+    if let Some(len) = plan.fixed_len() {
+        return (data.len().saturating_sub(pos) >= len).then_some(len);
+    }
+    let mut at = pos;
+    for f in plan.fields() {
+        let (_, end) = field_span(data, at, &f.spec)?;
+        at = end;
+    }
+    Some(at - pos)
+}
+
 /// Length of the record starting at `pos` in `data`, checking every
 /// variable-length field (and nested list) against the end of the data.
 /// On overrun returns (field index, offset of field, needed, available).

@@ -6,7 +6,7 @@ use crate::error::ListProblem;
 use crate::field::FieldSpecifier;
 use crate::ie;
 use crate::plan::{Decode, Plan};
-use crate::record::{decode_value, field_span, record_len, Record, RecordFault, Scope, Value};
+use crate::record::{decode_value, field_span, record_len, record_span, Record, RecordFault, Scope, Value};
 
 /// List semantics (RFC 6313 §4.4; IANA "IPFIX Structured Data Types Semantics").
 pub mod semantic {
@@ -227,7 +227,8 @@ impl<'a> Iterator for Records<'a> {
         if self.data.len().saturating_sub(self.pos) < plan.min_len() {
             return None;
         }
-        let len = record_len(plan, self.data, self.pos, scope).ok()?;
+        // Checked with the enclosing record when its message was accepted.
+        let len = record_span(plan, self.data, self.pos)?;
         let bytes = self.data.get(self.pos..self.pos + len)?;
         self.pos += len;
         Some(Record::new(plan, bytes, scope))

@@ -15,7 +15,7 @@ use crate::error::{Malformed, MessageError, SkipReason, TemplateProblem};
 use crate::field::{ObservationDomainId, TemplateId};
 use crate::message::{MessageHeader, HEADER_LEN};
 use crate::plan::Plan;
-use crate::record::{record_len, Record, RecordFault, Scope, TemplateTable};
+use crate::record::{record_len, record_span, Record, RecordFault, Scope, TemplateTable};
 use crate::sequence::{SequenceEvent, SequenceTracker};
 use crate::set::{SetKind, Sets, SET_HEADER_LEN};
 use crate::template::{parse_template_set, Template, TemplateRecord};
@@ -266,10 +266,9 @@ impl<'a> Iterator for DataRecords<'a> {
         if self.left == 0 {
             return None;
         }
-        let len = match self.plan.fixed_len() {
-            Some(len) if !self.plan.has_lists() => len,
-            _ => record_len(self.plan, self.data, self.pos, self.scope).ok()?,
-        };
+        // Lengths (and nested lists) were checked when the message was
+        // accepted; here only the field lengths are walked.
+        let len = record_span(self.plan, self.data, self.pos)?;
         let bytes = self.data.get(self.pos..self.pos + len)?;
         self.pos += len;
         self.left -= 1;
@@ -513,8 +512,7 @@ impl Decoder {
             let state = self.sessions.entry(*session).or_default();
             let template_count = state.template_count;
             let dstate = state.domains.entry(domain.0).or_default();
-            expire_templates(dstate, &self.config, session.transport, now, &mut self.stats);
-            run_pass(&self.config, session, &header, received, body, dstate, template_count, self.pending_bytes)
+            run_pass(&self.config, session, &header, received, now, body, dstate, template_count, self.pending_bytes)
         };
         match pass {
             Ok(pass) => Ok(self.commit(session, header, now, pass)),
@@ -670,26 +668,21 @@ fn merge_stats(into: &mut Stats, from: Stats) {
     }
     into.sets_buffered += from.sets_buffered;
     into.sets_replayed += from.sets_replayed;
+    into.templates_expired += from.templates_expired;
 }
 
-fn expire_templates(d: &mut DomainState, config: &Config, transport: Transport, now: Duration, stats: &mut Stats) {
+/// Drops UDP templates not refreshed within their lifetime. Part of the
+/// pass, so a malformed message (discarded whole) expires nothing.
+fn expire_templates(d: &DomainState, config: &Config, transport: Transport, now: Duration, pass: &mut Pass<'_>) {
     // RFC 7011 §8.4: over UDP the collector MAY expire templates that are
     // not refreshed within their lifetime; other transports keep them.
     let (Transport::Udp, Some(lifetime)) = (transport, config.template_lifetime) else { return };
-    let expired: Vec<u16> = d
-        .refreshed
-        .iter()
-        .filter(|(_, t)| now.saturating_sub(**t) > lifetime)
-        .map(|(id, _)| *id)
-        .collect();
-    if expired.is_empty() {
-        return;
-    }
-    let table = Arc::make_mut(&mut d.templates);
-    for id in expired {
-        table.remove(&id);
-        d.refreshed.remove(&id);
-        stats.templates_expired += 1;
+    for (id, refreshed) in &d.refreshed {
+        if now.saturating_sub(*refreshed) > lifetime && Arc::make_mut(&mut pass.table).remove(id).is_some() {
+            pass.removed.push(*id);
+            pass.template_delta -= 1;
+            pass.stats.templates_expired += 1;
+        }
     }
 }
 
@@ -710,6 +703,7 @@ fn run_pass<'a>(
     session: &TransportSession,
     header: &MessageHeader,
     received: Option<Duration>,
+    now: Duration,
     body: &'a [u8],
     dstate: &DomainState,
     template_count: usize,
@@ -731,6 +725,7 @@ fn run_pass<'a>(
         stats: Stats::default(),
         dstats: DomainStats::default(),
     };
+    expire_templates(dstate, config, session.transport, now, &mut pass);
     for set in Sets::new(body, HEADER_LEN) {
         let set = set?;
         match set.header.kind() {

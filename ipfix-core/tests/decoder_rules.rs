@@ -760,3 +760,23 @@ fn buffered_set_that_does_not_fit_its_template_is_counted() {
     assert_eq!(decoder.stats().sets_skipped.get("malformed-when-replayed"), Some(&1));
     assert_eq!(decoder.stats().records_decoded, 0);
 }
+
+/// RFC 7011 §9.1: a malformed message is discarded whole. That includes the
+/// UDP template expiry (RFC 7011 §8.4, lifetime from `Config`) its time
+/// would trigger: only an accepted message moves template state.
+#[test]
+fn malformed_message_expires_no_template() {
+    let mut decoder = Decoder::new(Config::default());
+    let session = udp();
+    let define = message(1, 0, T0, &[set(2, &tpl(256, &[(8, 4)]))]);
+    assert!(decoder.decode(&session, Some(Duration::from_secs(u64::from(T0))), &define).is_ok());
+    let later = Some(Duration::from_secs(u64::from(T0) + 7200));
+    // Set length 99 runs past the end of the message.
+    let bad = message(1, 0, T0 + 7200, &[vec![0x01, 0x00, 0x00, 99]]);
+    assert!(decoder.decode(&session, later, &bad).is_err());
+    assert_eq!(decoder.stats().templates_expired, 0);
+    assert!(decoder.templates(&session, ObservationDomainId(1)).is_some_and(|t| t.contains_key(&256)));
+    let empty = message(1, 0, T0 + 7200, &[]);
+    assert!(decoder.decode(&session, later, &empty).is_ok());
+    assert_eq!(decoder.stats().templates_expired, 1);
+}

@@ -2,11 +2,11 @@
 
 use std::any::Any;
 use std::fmt::Write as _;
-use std::net::Ipv6Addr;
+use std::slice::ChunksExact;
 use std::sync::Arc;
 
 use arrow::array::{
-    ArrayBuilder, ArrayRef, BinaryBuilder, BooleanBuilder, FixedSizeBinaryBuilder, Float32Builder, Float64Builder,
+    ArrayBuilder, ArrayRef, ArrowPrimitiveType, BinaryBuilder, PrimitiveBuilder, BooleanBuilder, FixedSizeBinaryBuilder, Float32Builder, Float64Builder,
     Int16Builder, Int32Builder, Int64Builder, Int8Builder, ListBuilder, RecordBatch, StringBuilder, StructBuilder,
     TimestampMicrosecondBuilder, TimestampMillisecondBuilder, TimestampNanosecondBuilder, TimestampSecondBuilder,
     UInt16Builder, UInt32Builder, UInt64Builder, UInt8Builder,
@@ -19,7 +19,8 @@ use super::schema::{
     column_name, element_type, name_value_fields, record_struct_fields, write_field_name, ColumnRole, TableKind,
     TableSchema,
 };
-use super::text::{write_ipv4, write_mac, write_value_text};
+use super::text::{write_mac, write_value_text};
+use super::utf8::{ipv4_text, ipv6_text, TextBuilder};
 use super::{ColumnarError, ColumnarStats};
 use crate::plan::{Decode, Plan};
 use crate::record::{field_span, DateTime, Record, Value};
@@ -41,7 +42,7 @@ pub(crate) enum Scalar {
     F32(Float32Builder),
     F64(Float64Builder),
     Bool(BooleanBuilder),
-    Utf8(StringBuilder),
+    Utf8(TextBuilder),
     Binary(BinaryBuilder),
     Fsb(FixedSizeBinaryBuilder),
     TsS(TimestampSecondBuilder),
@@ -76,33 +77,61 @@ fn ntp(raw: &[u8], micro: bool) -> Option<DateTime> {
     Some(DateTime::from_ntp(u32::from_be_bytes(*s), u32::from_be_bytes(*f), micro))
 }
 
-/// Text of recently seen IPv4 addresses: flows repeat addresses, and a
-/// cache hit costs a compare and a copy instead of formatting.
-#[derive(Debug)]
-pub(crate) struct Ipv4Texts {
-    /// (address, text); an empty text marks a vacant slot.
-    slots: Vec<(u32, String)>,
+/// The big-endian unsigned integer of `L` octets at `s` in `r`, widened
+/// (RFC 7011 §6.2); 0 when out of bounds (callers slice records by the
+/// plan, so it never is).
+#[inline(always)]
+fn be_at<const L: usize>(r: &[u8], s: usize) -> u64 {
+    let Some(b) = r.get(s..).and_then(|t| t.first_chunk::<L>()) else { return 0 };
+    let mut w = [0u8; 8];
+    if let Some(d) = w.get_mut(8 - L..) {
+        d.copy_from_slice(b);
+    }
+    u64::from_be_bytes(w)
 }
 
-impl Ipv4Texts {
-    const SLOTS: usize = 4096;
-
-    pub(crate) fn new() -> Self {
-        Self { slots: vec![(0, String::new()); Self::SLOTS] }
-    }
-
-    fn text(&mut self, a: [u8; 4]) -> &str {
-        let key = u32::from_be_bytes(a);
-        // Multiplicative hash, top 12 bits.
-        let i = (key.wrapping_mul(0x9E37_79B1) >> 20) as usize;
-        let Some(slot) = self.slots.get_mut(i) else { return "" };
-        if slot.0 != key || slot.1.is_empty() {
-            slot.0 = key;
-            slot.1.clear();
-            let _ = write_ipv4(a, &mut slot.1);
+/// Appends one value per record, `f` reading it from the record's octets:
+/// the values are written in place, so the loop is the conversion alone.
+#[inline(always)]
+fn fill<T: ArrowPrimitiveType>(b: &mut PrimitiveBuilder<T>, records: ChunksExact<'_, u8>, f: impl Fn(&[u8]) -> T::Native) {
+    let start = b.len();
+    b.append_value_n(T::Native::default(), records.len());
+    if let Some(dst) = b.values_slice_mut().get_mut(start..) {
+        for (d, r) in dst.iter_mut().zip(records) {
+            *d = f(r);
         }
-        &slot.1
     }
+}
+
+/// [`fill`] with an unsigned field of `len` octets at `s`, converted by
+/// `conv` (given `len` fits the column's width). False for other lengths.
+#[inline(always)]
+fn fill_uint<T: ArrowPrimitiveType>(
+    b: &mut PrimitiveBuilder<T>,
+    records: ChunksExact<'_, u8>,
+    s: usize,
+    len: usize,
+    conv: impl Fn(u64) -> T::Native + Copy,
+) -> bool {
+    match len {
+        1 => fill(b, records, |r| conv(be_at::<1>(r, s))),
+        2 => fill(b, records, |r| conv(be_at::<2>(r, s))),
+        3 => fill(b, records, |r| conv(be_at::<3>(r, s))),
+        4 => fill(b, records, |r| conv(be_at::<4>(r, s))),
+        5 => fill(b, records, |r| conv(be_at::<5>(r, s))),
+        6 => fill(b, records, |r| conv(be_at::<6>(r, s))),
+        7 => fill(b, records, |r| conv(be_at::<7>(r, s))),
+        8 => fill(b, records, |r| conv(be_at::<8>(r, s))),
+        _ => return false,
+    }
+    true
+}
+
+/// Sign-extends the low `len` octets of `v` (RFC 7011 §6.2).
+#[inline(always)]
+fn sign_extend(v: u64, len: usize) -> i64 {
+    let shift = 64 - 8 * (len.clamp(1, 8) as u32);
+    ((v << shift) as i64) >> shift
 }
 
 /// Runs `$e` with `$b` bound to whichever typed builder a [`Scalar`] holds.
@@ -158,7 +187,7 @@ impl Scalar {
             ArrowType::Float32 => Self::F32(Float32Builder::with_capacity(capacity)),
             ArrowType::Float64 => Self::F64(Float64Builder::with_capacity(capacity)),
             ArrowType::Boolean => Self::Bool(BooleanBuilder::with_capacity(capacity)),
-            ArrowType::Utf8 => Self::Utf8(StringBuilder::with_capacity(capacity, capacity.saturating_mul(16))),
+            ArrowType::Utf8 => Self::Utf8(TextBuilder::with_capacity(capacity, capacity.saturating_mul(16))),
             ArrowType::Binary => Self::Binary(BinaryBuilder::with_capacity(capacity, capacity.saturating_mul(8))),
             ArrowType::FixedSizeBinary(w) => Self::Fsb(FixedSizeBinaryBuilder::with_capacity(capacity, *w)),
             ArrowType::Timestamp(TimeUnit::Second, _) => {
@@ -192,7 +221,7 @@ impl Scalar {
     /// Appends a field's octets decoded by `decode` (the hot path: no
     /// [`Value`], no allocation). The plan guarantees the octets fit the
     /// column's type; anything else is written as null and counted.
-    fn append_raw(&mut self, decode: Decode, raw: &[u8], stats: &mut ColumnarStats, v4: &mut Ipv4Texts) {
+    fn append_raw(&mut self, decode: Decode, raw: &[u8], stats: &mut ColumnarStats) {
         match self {
             Self::U8(b) => append_or_null!(b, u8::try_from(be_uint(raw)).ok(), stats, values_null_invalid),
             Self::U16(b) => append_or_null!(b, u16::try_from(be_uint(raw)).ok(), stats, values_null_invalid),
@@ -241,15 +270,11 @@ impl Scalar {
                     None => null_invalid(b, stats),
                 },
                 Decode::Ipv4Address => match raw.first_chunk::<4>().filter(|_| raw.len() == 4) {
-                    Some(a) => b.append_value(v4.text(*a)),
+                    Some(a) => append_ipv4(b, *a),
                     None => null_invalid(b, stats),
                 },
                 Decode::Ipv6Address => match raw.first_chunk::<16>().filter(|_| raw.len() == 16) {
-                    Some(a) => {
-                        // std's Display follows RFC 5952 (lower case, longest zero run as ::).
-                        let _ = write!(b, "{}", Ipv6Addr::from(*a));
-                        b.append_value("");
-                    }
+                    Some(a) => append_ipv6(b, a),
                     None => null_invalid(b, stats),
                 },
                 _ => null_invalid(b, stats),
@@ -308,6 +333,52 @@ impl Scalar {
         }
     }
 
+    /// Appends field octets `s..e` of every record of a fixed-layout set,
+    /// one column at a time: the type dispatch happens once per set, and
+    /// the common types convert in a tight loop. The others go value by
+    /// value through [`append_raw`](Self::append_raw).
+    fn append_column(&mut self, decode: Decode, records: ChunksExact<'_, u8>, s: usize, e: usize, stats: &mut ColumnarStats) {
+        let len = e.saturating_sub(s);
+        let done = match (&mut *self, decode) {
+            (Self::U8(b), Decode::Unsigned) if len <= 1 => fill_uint(b, records.clone(), s, len, |v| v as u8),
+            (Self::U16(b), Decode::Unsigned) if len <= 2 => fill_uint(b, records.clone(), s, len, |v| v as u16),
+            (Self::U32(b), Decode::Unsigned) if len <= 4 => fill_uint(b, records.clone(), s, len, |v| v as u32),
+            (Self::U64(b), Decode::Unsigned) => fill_uint(b, records.clone(), s, len, |v| v),
+            (Self::I8(b), Decode::Signed) if len <= 1 => fill_uint(b, records.clone(), s, len, |v| sign_extend(v, len) as i8),
+            (Self::I16(b), Decode::Signed) if len <= 2 => fill_uint(b, records.clone(), s, len, |v| sign_extend(v, len) as i16),
+            (Self::I32(b), Decode::Signed) if len <= 4 => fill_uint(b, records.clone(), s, len, |v| sign_extend(v, len) as i32),
+            (Self::I64(b), Decode::Signed) => fill_uint(b, records.clone(), s, len, |v| sign_extend(v, len)),
+            (Self::TsS(b), Decode::DateTimeSeconds) if len == 4 => fill_uint(b, records.clone(), s, len, |v| v as i64),
+            (Self::TsMs(b), Decode::DateTimeMilliseconds)
+                if len == 8 && records.clone().all(|r| i64::try_from(be_at::<8>(r, s)).is_ok()) =>
+            {
+                fill_uint(b, records.clone(), s, len, |v| v as i64)
+            }
+            (Self::Utf8(b), Decode::Ipv4Address) if len == 4 => {
+                for r in records.clone() {
+                    let [w, x, y, z] = (be_at::<4>(r, s) as u32).to_be_bytes();
+                    append_ipv4(b, [w, x, y, z]);
+                }
+                true
+            }
+            (Self::Utf8(b), Decode::Ipv6Address) if len == 16 => {
+                for r in records.clone() {
+                    match r.get(s..).and_then(|t| t.first_chunk::<16>()) {
+                        Some(a) => append_ipv6(b, a),
+                        None => null_invalid(b, stats),
+                    }
+                }
+                true
+            }
+            _ => false,
+        };
+        if !done {
+            for r in records {
+                self.append_raw(decode, r.get(s..e).unwrap_or_default(), stats);
+            }
+        }
+    }
+
     /// Appends a decoded value: list items, whose element may be of any
     /// type. A value of another type than the column's is a null item,
     /// counted in `list_elements_null`; generic (Utf8) items take the text
@@ -341,6 +412,14 @@ impl Scalar {
                 true
             }
             (Self::Utf8(_), Value::Invalid(_)) => false,
+            (Self::Utf8(b), Value::Ipv4(a)) => {
+                append_ipv4(b, a.octets());
+                true
+            }
+            (Self::Utf8(b), Value::Ipv6(a)) => {
+                append_ipv6(b, &a.octets());
+                true
+            }
             (Self::Utf8(b), v) => {
                 let _ = write_value_text(v, b);
                 b.append_value("");
@@ -376,7 +455,23 @@ impl Scalar {
     }
 }
 
-fn null_invalid(b: &mut StringBuilder, stats: &mut ColumnarStats) {
+/// Appends an address in dotted decimal.
+#[inline]
+fn append_ipv4(b: &mut TextBuilder, a: [u8; 4]) {
+    let mut buf = [0u8; 16];
+    let n = ipv4_text(a, &mut buf);
+    b.append_short(&buf, n);
+}
+
+/// Appends an address in the RFC 5952 text form.
+#[inline]
+fn append_ipv6(b: &mut TextBuilder, a: &[u8; 16]) {
+    let mut buf = [0u8; 48];
+    let n = ipv6_text(a, &mut buf);
+    b.append_short(&buf, n);
+}
+
+fn null_invalid(b: &mut TextBuilder, stats: &mut ColumnarStats) {
     b.append_null();
     stats.values_null_invalid += 1;
 }
@@ -591,7 +686,8 @@ pub struct TableBuilder {
     spans: Vec<Option<(usize, usize)>>,
     labels: Vec<u32>,
     text: String,
-    v4: Ipv4Texts,
+    /// Appends every set record by record (tests compare the two paths).
+    pub(crate) row_path: bool,
 }
 
 /// Most plans kept in the mapping cache; past it the cache is cleared
@@ -636,7 +732,7 @@ impl TableBuilder {
             spans: Vec::new(),
             labels: Vec::new(),
             text: String::new(),
-            v4: Ipv4Texts::new(),
+            row_path: false,
         }
     }
 
@@ -758,11 +854,17 @@ impl TableBuilder {
             None => 0,
         };
 
-        let mut n = 0usize;
-        for record in set.records() {
-            self.append_record(&map, &record, &ctx, groups);
-            n += 1;
-        }
+        let n = match self.fixed_records(&map, set) {
+            Some(records) => self.append_fixed_set(&map, set, records, &ctx, groups),
+            None => {
+                let mut n = 0usize;
+                for record in set.records() {
+                    self.append_record(&map, &record, &ctx, groups);
+                    n += 1;
+                }
+                n
+            }
+        };
         if let Some(base) = self.fixed.derived {
             self.append_constant_derived(base, groups, &ctx, n);
         }
@@ -775,7 +877,7 @@ impl TableBuilder {
         let f = self.fixed;
         if let Some(Column::Scalar(Scalar::Utf8(b))) = self.columns.get_mut(f.exporter) {
             match exporter {
-                Some(_) => (0..n).for_each(|_| b.append_value(&self.text)),
+                Some(_) => b.append_repeated(&self.text, n),
                 None => b.append_nulls(n),
             }
         }
@@ -806,6 +908,56 @@ impl TableBuilder {
         self.rows += n;
         self.stats.rows += n as u64;
         self.stats.sets += 1;
+        n
+    }
+
+    /// The records of a set whose plan has a fixed layout, as equal chunks.
+    fn fixed_records<'s>(&self, map: &PlanMap, set: &'s DataSet<'_>) -> Option<ChunksExact<'s, u8>> {
+        if self.row_path {
+            return None;
+        }
+        map.layout.as_ref()?;
+        let len = set.plan().fixed_len().filter(|l| *l > 0)?;
+        let body = set.bytes().get(..set.len().checked_mul(len)?)?;
+        Some(body.chunks_exact(len))
+    }
+
+    /// Appends a fixed-layout set column by column; returns the rows.
+    fn append_fixed_set(
+        &mut self,
+        map: &PlanMap,
+        set: &DataSet<'_>,
+        records: ChunksExact<'_, u8>,
+        ctx: &SetContext<'_>,
+        groups: u8,
+    ) -> usize {
+        let n = records.len();
+        let Some(layout) = map.layout.as_deref() else { return 0 };
+        for ((slot, field), (s, e)) in map.slots.iter().zip(set.plan().fields()).zip(layout) {
+            if slot.column == UNPLACED {
+                self.stats.values_unplaced += n as u64;
+                continue;
+            }
+            if field.length_mismatch {
+                self.stats.values_octets_fallback += n as u64;
+            }
+            match self.columns.get_mut(slot.column) {
+                Some(Column::Scalar(col)) => col.append_column(slot.decode, records.clone(), *s, *e, &mut self.stats),
+                Some(col) => {
+                    // A layout has no list fields; defensive only.
+                    col.append_nulls(n);
+                    self.stats.values_null_invalid += n as u64;
+                }
+                None => {}
+            }
+        }
+        if let Some(base) = self.fixed.derived.filter(|_| groups != 0) {
+            for data in records {
+                let raw = |i: usize| layout.get(i).and_then(|(s, e)| data.get(*s..*e));
+                let row = map.derived.compute(groups, raw, ctx, &mut self.labels, &mut self.stats);
+                self.append_derived(base, &row, groups);
+            }
+        }
         n
     }
 
@@ -858,7 +1010,7 @@ impl TableBuilder {
         }
         let Some(col) = self.columns.get_mut(slot.column) else { return };
         match (col, raw) {
-            (Column::Scalar(s), Some(raw)) => s.append_raw(slot.decode, raw, &mut self.stats, &mut self.v4),
+            (Column::Scalar(s), Some(raw)) => s.append_raw(slot.decode, raw, &mut self.stats),
             (col @ (Column::List(_) | Column::Records(_)), Some(_)) if map.has_lists => match record.value(index) {
                 Some(v) => col.append_list(&v, &mut self.stats),
                 None => {

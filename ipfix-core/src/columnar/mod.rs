@@ -136,6 +136,7 @@ mod enrich;
 mod schema;
 mod sink;
 mod text;
+mod utf8;
 
 #[cfg(test)]
 mod tests;

@@ -36,25 +36,15 @@ pub(crate) fn write_mac(mac: &[u8; 6], out: &mut impl Write) -> fmt::Result {
 /// Writes an IPv4 address in dotted decimal without going through
 /// `fmt::Display` (the hot path of address columns).
 pub(crate) fn write_ipv4(a: [u8; 4], out: &mut impl Write) -> fmt::Result {
-    let mut buf = [0u8; 15];
-    let mut n = 0;
-    for (i, octet) in a.iter().enumerate() {
-        if i > 0 {
-            if let Some(slot) = buf.get_mut(n) {
-                *slot = b'.';
-            }
-            n += 1;
-        }
-        let digits: &[u8] = match octet {
-            0..=9 => &[b'0' + octet],
-            10..=99 => &[b'0' + octet / 10, b'0' + octet % 10],
-            _ => &[b'0' + octet / 100, b'0' + octet / 10 % 10, b'0' + octet % 10],
-        };
-        if let Some(dst) = buf.get_mut(n..n + digits.len()) {
-            dst.copy_from_slice(digits);
-        }
-        n += digits.len();
-    }
+    let mut buf = [0u8; 16];
+    let n = super::utf8::ipv4_text(a, &mut buf);
+    out.write_str(buf.get(..n).and_then(|b| std::str::from_utf8(b).ok()).unwrap_or_default())
+}
+
+/// Writes an IPv6 address in the RFC 5952 text form.
+pub(crate) fn write_ipv6(a: &[u8; 16], out: &mut impl Write) -> fmt::Result {
+    let mut buf = [0u8; 48];
+    let n = super::utf8::ipv6_text(a, &mut buf);
     out.write_str(buf.get(..n).and_then(|b| std::str::from_utf8(b).ok()).unwrap_or_default())
 }
 
@@ -107,7 +97,7 @@ pub fn write_value_text(v: &Value<'_>, out: &mut impl Write) -> fmt::Result {
         Value::Octets(b) | Value::Unsigned256(b) | Value::Invalid(b) => write_hex(b, out),
         Value::DateTime(t) => write_datetime(*t, out),
         Value::Ipv4(a) => write_ipv4(a.octets(), out),
-        Value::Ipv6(a) => write!(out, "{a}"),
+        Value::Ipv6(a) => write_ipv6(&a.octets(), out),
         Value::BasicList(list) => {
             out.write_char('[')?;
             for (i, item) in list.iter().enumerate() {

@@ -1,0 +1,379 @@
+//! The Utf8 column builder, shaped for the short texts of the hot path:
+//! addresses, names and forwarding reasons.
+//!
+//! Arrow's own string builder copies each value with a call to `memcpy`;
+//! for texts of a dozen octets that call costs more than the copy. Here a
+//! short text arrives as a fixed-size array and its length: the whole array
+//! is appended (one inlined vector store), then the tail is cut off. The
+//! buffers become a [`StringArray`] through Arrow's checked constructor, so
+//! a bug here shows up as an error, never as an invalid array.
+//!
+//! Offsets are 32-bit, as Utf8 requires. A value that would carry a batch's
+//! text past 2 GiB is written as null and counted rather than panicking.
+
+use std::any::Any;
+use std::fmt;
+use std::sync::Arc;
+
+use arrow::array::builder::NullBufferBuilder;
+use arrow::array::{ArrayBuilder, ArrayRef, StringArray};
+use arrow::buffer::{Buffer, OffsetBuffer, ScalarBuffer};
+
+/// A Utf8 column under construction.
+#[derive(Debug)]
+pub(crate) struct TextBuilder {
+    /// Always one more than the number of values; starts with 0.
+    offsets: Vec<i32>,
+    values: Vec<u8>,
+    nulls: NullBufferBuilder,
+    /// Values written as null because the batch's text passed 2 GiB.
+    pub(crate) overflowed: u64,
+}
+
+impl TextBuilder {
+    /// Room for `items` values of `bytes` octets in all.
+    pub(crate) fn with_capacity(items: usize, bytes: usize) -> Self {
+        let mut offsets = Vec::with_capacity(items + 1);
+        offsets.push(0);
+        Self { offsets, values: Vec::with_capacity(bytes), nulls: NullBufferBuilder::new(items), overflowed: 0 }
+    }
+
+    /// Closes the value that started at `start` in the values buffer
+    /// (octets written with [`fmt::Write`] belong to it too).
+    #[inline]
+    fn close(&mut self, start: usize) {
+        if let Ok(end) = i32::try_from(self.values.len()) {
+            self.offsets.push(end);
+            self.nulls.append_non_null();
+        } else {
+            debug_assert!(start >= self.pending_start());
+            self.values.truncate(self.pending_start());
+            self.push_null();
+            self.overflowed += 1;
+        }
+    }
+
+    /// Where the value being written started.
+    #[inline]
+    fn pending_start(&self) -> usize {
+        self.offsets.last().map_or(0, |o| usize::try_from(*o).unwrap_or(0))
+    }
+
+    #[inline]
+    fn push_null(&mut self) {
+        let end = self.offsets.last().copied().unwrap_or(0);
+        self.offsets.push(end);
+        self.nulls.append_null();
+    }
+
+    /// Appends `s`, after any text written with [`fmt::Write`] since the
+    /// last value (so `write!(b, ..)` then `append_value("")` appends the
+    /// formatted text).
+    #[inline]
+    pub(crate) fn append_value(&mut self, s: &str) {
+        let start = self.values.len();
+        self.values.extend_from_slice(s.as_bytes());
+        self.close(start);
+    }
+
+    /// Appends the first `len` octets of `buf`, which must be UTF-8 (the
+    /// callers give ASCII): a fixed-size copy, then the tail is cut off.
+    #[inline]
+    pub(crate) fn append_short<const N: usize>(&mut self, buf: &[u8; N], len: usize) {
+        let start = self.values.len();
+        self.values.extend_from_slice(buf);
+        self.values.truncate(start + len.min(N));
+        self.close(start);
+    }
+
+    /// Appends a null.
+    #[inline]
+    pub(crate) fn append_null(&mut self) {
+        self.values.truncate(self.pending_start());
+        self.push_null();
+    }
+
+    /// Appends `n` nulls.
+    pub(crate) fn append_nulls(&mut self, n: usize) {
+        self.values.truncate(self.pending_start());
+        let end = self.offsets.last().copied().unwrap_or(0);
+        self.offsets.extend(std::iter::repeat_n(end, n));
+        self.nulls.append_n_nulls(n);
+    }
+
+    /// Appends `s`, or a null.
+    #[inline]
+    pub(crate) fn append_option(&mut self, s: Option<&str>) {
+        match s {
+            Some(s) => self.append_value(s),
+            None => self.append_null(),
+        }
+    }
+
+    /// Appends `s` `n` times.
+    pub(crate) fn append_repeated(&mut self, s: &str, n: usize) {
+        self.values.truncate(self.pending_start());
+        self.values.reserve(s.len().saturating_mul(n));
+        self.offsets.reserve(n);
+        for _ in 0..n {
+            let start = self.values.len();
+            self.values.extend_from_slice(s.as_bytes());
+            self.close(start);
+        }
+    }
+
+    fn build(offsets: Vec<i32>, values: Vec<u8>, nulls: Option<arrow::buffer::NullBuffer>) -> ArrayRef {
+        let len = offsets.len().saturating_sub(1);
+        if offsets.is_empty() {
+            return Arc::new(StringArray::new_null(0));
+        }
+        let offsets = OffsetBuffer::new(ScalarBuffer::from(offsets));
+        match StringArray::try_new(offsets, Buffer::from_vec(values), nulls) {
+            Ok(a) => Arc::new(a),
+            Err(e) => {
+                // Every writer here gives UTF-8 and monotonic offsets.
+                debug_assert!(false, "text column: {e}");
+                Arc::new(StringArray::new_null(len))
+            }
+        }
+    }
+}
+
+impl fmt::Write for TextBuilder {
+    #[inline]
+    fn write_str(&mut self, s: &str) -> fmt::Result {
+        self.values.extend_from_slice(s.as_bytes());
+        Ok(())
+    }
+}
+
+impl ArrayBuilder for TextBuilder {
+    fn len(&self) -> usize {
+        self.offsets.len().saturating_sub(1)
+    }
+
+    fn finish(&mut self) -> ArrayRef {
+        self.values.truncate(self.pending_start());
+        let offsets = std::mem::replace(&mut self.offsets, vec![0]);
+        let values = std::mem::take(&mut self.values);
+        let nulls = self.nulls.finish();
+        Self::build(offsets, values, nulls)
+    }
+
+    fn finish_cloned(&self) -> ArrayRef {
+        let mut values = self.values.clone();
+        values.truncate(self.pending_start());
+        Self::build(self.offsets.clone(), values, self.nulls.finish_cloned())
+    }
+
+    fn as_any(&self) -> &dyn Any {
+        self
+    }
+
+    fn as_any_mut(&mut self) -> &mut dyn Any {
+        self
+    }
+
+    fn into_box_any(self: Box<Self>) -> Box<dyn Any> {
+        self
+    }
+}
+
+/// Dotted-decimal text of every octet value, padded to 4 octets with the
+/// length in the last: `b"192\x03"`, `b"7\0\0\x01"`.
+#[allow(clippy::indexing_slicing, reason = "const fn; i < 256 by the loop")]
+const fn octet_texts() -> [[u8; 4]; 256] {
+    let mut t = [[0u8; 4]; 256];
+    let mut i = 0;
+    while i < 256 {
+        let v = i as u8;
+        t[i] = if v >= 100 {
+            [b'0' + v / 100, b'0' + v / 10 % 10, b'0' + v % 10, 3]
+        } else if v >= 10 {
+            [b'0' + v / 10, b'0' + v % 10, 0, 2]
+        } else {
+            [b'0' + v, 0, 0, 1]
+        };
+        i += 1;
+    }
+    t
+}
+
+static OCTETS: [[u8; 4]; 256] = octet_texts();
+
+/// Writes an IPv4 address in dotted decimal into `out`; returns the length
+/// (7 to 15).
+#[inline]
+pub(crate) fn ipv4_text(a: [u8; 4], out: &mut [u8; 16]) -> usize {
+    let mut n = 0usize;
+    for (i, octet) in a.into_iter().enumerate() {
+        let [d0, d1, d2, len] = OCTETS.get(usize::from(octet)).copied().unwrap_or([b'0', 0, 0, 1]);
+        if let Some(dst) = out.get_mut(n..n + 4) {
+            dst.copy_from_slice(&[d0, d1, d2, b'.']);
+        }
+        n += usize::from(len);
+        if i < 3 {
+            if let Some(dot) = out.get_mut(n) {
+                *dot = b'.';
+            }
+            n += 1;
+        }
+    }
+    n
+}
+
+const HEX: &[u8; 16] = b"0123456789abcdef";
+
+/// Writes an IPv6 address in the RFC 5952 text form into `out`; returns the
+/// length. Lower-case hex without leading zeros (§4.1, §4.3), the longest
+/// run of two or more zero groups as `::`, the first of equal runs (§4.2);
+/// IPv4-mapped addresses as `::ffff:a.b.c.d` (§5). The same text as std's
+/// `Display` for `Ipv6Addr` (a property test compares them).
+#[inline]
+pub(crate) fn ipv6_text(a: &[u8; 16], out: &mut [u8; 48]) -> usize {
+    let mut seg = [0u16; 8];
+    for (s, pair) in seg.iter_mut().zip(a.chunks_exact(2)) {
+        *s = u16::from_be_bytes([pair.first().copied().unwrap_or(0), pair.get(1).copied().unwrap_or(0)]);
+    }
+    let mut n = 0usize;
+    let mut put = |b: u8, n: &mut usize| {
+        if let Some(slot) = out.get_mut(*n) {
+            *slot = b;
+        }
+        *n += 1;
+    };
+    if let [0, 0, 0, 0, 0, 0xffff, _, _] = seg {
+        // §5: IPv4-mapped, the last 32 bits in dotted decimal.
+        for b in *b"::ffff:" {
+            put(b, &mut n);
+        }
+        let mut v4 = [0u8; 16];
+        let [.., w, x, y, z] = *a;
+        let len = ipv4_text([w, x, y, z], &mut v4);
+        for b in v4.into_iter().take(len) {
+            put(b, &mut n);
+        }
+        return n;
+    }
+    // §4.2.3: the longest run of zero groups, the first if tied; §4.2.2: not a single one.
+    let (mut best, mut best_len, mut run, mut run_len) = (0usize, 0usize, 0usize, 0usize);
+    for (i, s) in seg.iter().enumerate() {
+        if *s == 0 {
+            if run_len == 0 {
+                run = i;
+            }
+            run_len += 1;
+            if run_len > best_len {
+                best = run;
+                best_len = run_len;
+            }
+        } else {
+            run_len = 0;
+        }
+    }
+    if best_len < 2 {
+        best_len = 0;
+        best = 8;
+    }
+    let mut i = 0usize;
+    while i < 8 {
+        if i == best {
+            put(b':', &mut n);
+            put(b':', &mut n);
+            i += best_len;
+            continue;
+        }
+        if i > 0 && i != best + best_len {
+            put(b':', &mut n);
+        }
+        let s = seg.get(i).copied().unwrap_or(0);
+        let digits = (4 - (s.leading_zeros() / 4) as usize).max(1);
+        for k in (0..digits).rev() {
+            put(HEX.get(usize::from((s >> (4 * k)) & 0xf)).copied().unwrap_or(b'0'), &mut n);
+        }
+        i += 1;
+    }
+    n
+}
+
+#[cfg(test)]
+mod tests {
+    use std::fmt::Write as _;
+    use std::net::{Ipv4Addr, Ipv6Addr};
+
+    use arrow::array::Array;
+    use proptest::prelude::*;
+
+    use super::*;
+
+    fn v6(a: [u8; 16]) -> String {
+        let mut buf = [0u8; 48];
+        let n = ipv6_text(&a, &mut buf);
+        String::from_utf8(buf[..n].to_vec()).unwrap()
+    }
+
+    #[test]
+    fn rfc5952_examples() {
+        // RFC 5952 §4.2.1, §4.2.2, §4.2.3, §4.3, §5 (examples from the text).
+        for (addr, text) in [
+            ("2001:db8:0:0:0:0:2:1", "2001:db8::2:1"),
+            ("2001:db8:0:1:1:1:1:1", "2001:db8:0:1:1:1:1:1"),
+            ("2001:0:0:1:0:0:0:1", "2001:0:0:1::1"),
+            ("2001:db8:0:0:1:0:0:1", "2001:db8::1:0:0:1"),
+            ("2001:DB8::AAAA", "2001:db8::aaaa"),
+            ("::ffff:192.0.2.1", "::ffff:192.0.2.1"),
+            ("::", "::"),
+            ("::1", "::1"),
+            ("1::", "1::"),
+        ] {
+            let a: Ipv6Addr = addr.parse().unwrap();
+            assert_eq!(v6(a.octets()), text, "{addr}");
+        }
+    }
+
+    proptest! {
+        /// The same text as std's Display (RFC 5952), for addresses with many zero groups.
+        #[test]
+        fn ipv6_matches_std(groups in proptest::array::uniform8(prop_oneof![Just(0u16), Just(0xffffu16), any::<u16>()])) {
+            let a = Ipv6Addr::from(groups);
+            prop_assert_eq!(v6(a.octets()), a.to_string());
+        }
+
+        #[test]
+        fn ipv4_matches_std(a in any::<[u8; 4]>()) {
+            let mut buf = [0u8; 16];
+            let n = ipv4_text(a, &mut buf);
+            prop_assert_eq!(std::str::from_utf8(&buf[..n]).unwrap(), Ipv4Addr::from(a).to_string());
+        }
+    }
+
+    #[test]
+    fn text_builder_round_trip() {
+        let mut b = TextBuilder::with_capacity(4, 8);
+        b.append_short(b"abcdefgh", 3);
+        b.append_null();
+        let _ = write!(b, "x{}", 7);
+        b.append_value("y");
+        b.append_nulls(2);
+        b.append_repeated("zz", 2);
+        b.append_option(None);
+        let a = b.finish();
+        let a = a.as_any().downcast_ref::<StringArray>().unwrap();
+        let got: Vec<Option<&str>> = a.iter().collect();
+        assert_eq!(got, [Some("abc"), None, Some("x7y"), None, None, Some("zz"), Some("zz"), None]);
+        assert_eq!(b.len(), 0);
+        b.append_value("again");
+        assert_eq!(b.finish().len(), 1);
+    }
+
+    #[test]
+    fn null_discards_half_written_text() {
+        let mut b = TextBuilder::with_capacity(2, 8);
+        let _ = write!(b, "lost");
+        b.append_null();
+        b.append_value("kept");
+        let a = b.finish();
+        let a = a.as_any().downcast_ref::<StringArray>().unwrap();
+        assert_eq!(a.iter().collect::<Vec<_>>(), [None, Some("kept")]);
+    }
+}

@@ -433,7 +433,8 @@ impl DropQuery {
             lf = lf.filter(record_time.clone().lt(lit(to).cast(time_dtype())));
         }
 
-        let lf = lf.with_columns(record_measures(record_time));
+        let present = |name: &str| inputs.dtype(name).is_some();
+        let lf = lf.with_columns(record_measures(Some(record_time), &present));
         let mut derived: Vec<Expr> = Vec::new();
         let mut group1: Vec<String> = Vec::new();
         if let Some(every) = every_ns {
@@ -580,23 +581,51 @@ fn key_names(plans: &[DimensionPlan]) -> Result<Vec<String>, Error> {
 }
 
 /// Per-record working columns: rate, sampled and scaled counts, variance
-/// term, record time.
-fn record_measures(record_time: Expr) -> Vec<Expr> {
+/// term, record time (when given).
+///
+/// `present` tells whether any input has a column. A column no input has
+/// reads as nulls throughout, so it is left out of the expressions instead
+/// of being materialised and coalesced row by row: `coalesce(x, null)` is
+/// `x`, and a count with no column at all is 0. The values are the same.
+fn record_measures(record_time: Option<Expr>, present: &dyn Fn(&str) -> bool) -> Vec<Expr> {
     use contract::*;
     let u64_0 = || lit(0u64);
-    let rate = col(SAMPLING_RATE).cast(DataType::UInt64);
-    let known = rate.clone().gt(u64_0()).fill_null(lit(false));
-    let n = when(known.clone()).then(rate).otherwise(lit(1u64));
-    let whole_drop = col(FORWARDING_OUTCOME)
-        .eq(lit(OUTCOME_DROPPED))
-        .fill_null(lit(false));
-    let u64c = |name: &str| col(name).cast(DataType::UInt64);
+    let u64c = |name: &str| present(name).then(|| col(name).cast(DataType::UInt64));
+    // The first non-null of the columns that exist; `None` when none does.
+    let first_of = |exprs: Vec<Option<Expr>>| {
+        let mut exprs: Vec<Expr> = exprs.into_iter().flatten().collect();
+        if exprs.len() > 1 {
+            Some(coalesce(&exprs))
+        } else {
+            exprs.pop()
+        }
+    };
+    let or_0 = |expr: Option<Expr>| match expr {
+        Some(expr) => coalesce(&[expr, u64_0()]),
+        None => u64_0(),
+    };
+    let (known, n) = if present(SAMPLING_RATE) {
+        let rate = col(SAMPLING_RATE).cast(DataType::UInt64);
+        let known = rate.clone().gt(u64_0()).fill_null(lit(false));
+        (known.clone(), when(known).then(rate).otherwise(lit(1u64)))
+    } else {
+        (lit(false), lit(1u64))
+    };
+    let whole_drop = present(FORWARDING_OUTCOME).then(|| {
+        col(FORWARDING_OUTCOME)
+            .eq(lit(OUTCOME_DROPPED))
+            .fill_null(lit(false))
+    });
     let counts = |delta: &str, total: &str, dropped: &str| {
-        let t = coalesce(&[u64c(delta), u64c(total)]);
-        let k = when(whole_drop.clone())
-            .then(coalesce(&[t.clone(), u64c(dropped), u64_0()]))
-            .otherwise(coalesce(&[u64c(dropped), u64_0()]));
-        (coalesce(&[t, u64_0()]), k)
+        let t = first_of(vec![u64c(delta), u64c(total)]);
+        let dropped = u64c(dropped);
+        let k = match &whole_drop {
+            Some(whole_drop) => when(whole_drop.clone())
+                .then(or_0(first_of(vec![t.clone(), dropped.clone()])))
+                .otherwise(or_0(dropped)),
+            None => or_0(dropped),
+        };
+        (or_0(t), k)
     };
     let (tp, kp) = counts(
         PACKET_DELTA_COUNT,
@@ -605,7 +634,7 @@ fn record_measures(record_time: Expr) -> Vec<Expr> {
     );
     let (to, ko) = counts(OCTET_DELTA_COUNT, OCTET_TOTAL_COUNT, DROPPED_OCTET_DELTA_COUNT);
     let nf = n.clone().cast(DataType::Float64);
-    vec![
+    let mut exprs = vec![
         n.clone().alias(W_N),
         kp.clone().alias(W_K),
         tp.clone().alias(W_T),
@@ -616,12 +645,16 @@ fn record_measures(record_time: Expr) -> Vec<Expr> {
         // Horvitz–Thompson variance term N(N−1)·k (see module docs).
         (nf.clone() * (nf - lit(1.0)) * kp.cast(DataType::Float64)).alias(W_VAR),
         known.cast(DataType::UInt64).alias(W_KNOWN),
-        record_time.alias(W_TIME),
-    ]
+    ];
+    if let Some(record_time) = record_time {
+        exprs.push(record_time.alias(W_TIME));
+    }
+    exprs
 }
 
-/// Stage-1 aggregations over records; `with_moments` adds the records that
-/// dropped and the second moments used by `compare`.
+/// Stage-1 aggregations over records; `with_moments` adds the sampled
+/// total packets, the records that dropped and the second moments used by
+/// `compare`.
 fn stage1_aggs(with_moments: bool) -> Vec<Expr> {
     let mut aggs = vec![
         col(W_DP).sum().alias(DROPPED_PACKETS),
@@ -630,7 +663,6 @@ fn stage1_aggs(with_moments: bool) -> Vec<Expr> {
         col(W_TO).sum().alias(TOTAL_OCTETS),
         len().cast(DataType::UInt64).alias(FLOW_RECORDS),
         col(W_K).sum().alias(A_SAMPLED),
-        col(W_T).sum().alias(A_SAMPLED_TOTAL),
         col(W_VAR).sum().alias(W_VAR),
         col(W_KNOWN).sum().alias(W_KNOWN),
         col(W_N).max().alias(A_MAX_RATE),
@@ -640,6 +672,7 @@ fn stage1_aggs(with_moments: bool) -> Vec<Expr> {
     if with_moments {
         let f = |c: &str| col(c).cast(DataType::Float64);
         aggs.extend([
+            col(W_T).sum().alias(A_SAMPLED_TOTAL),
             col(W_K).gt(lit(0u64)).cast(DataType::UInt64).sum().alias(A_DROP_RECORDS),
             (f(W_K) * f(W_K)).sum().alias(A_KK),
             (f(W_T) * f(W_T)).sum().alias(A_TT),

@@ -498,7 +498,10 @@ impl Decoder {
             }
         };
         let domain = header.observation_domain_id;
-        if !self.sessions.contains_key(session) && self.sessions.len() >= self.config.max_sessions {
+        // One lookup answers both: is the session new, is the domain new.
+        let known = self.sessions.get(session).map(|s| s.domains.contains_key(&domain.0));
+        let (new_session, new_domain) = (known.is_none(), known != Some(true));
+        if new_session && self.sessions.len() >= self.config.max_sessions {
             self.stats.messages_session_limit += 1;
             self.stats.skip(SkipReason::SessionLimit, msg.len());
             let ev = Event::SetSkipped { domain, set_id: 0, offset: 0, octets: msg.len(), reason: SkipReason::SessionLimit };
@@ -506,8 +509,6 @@ impl Decoder {
         }
         let now = received.unwrap_or(Duration::from_secs(u64::from(header.export_time)));
         let body = msg.get(HEADER_LEN..).unwrap_or_default();
-        let new_session = !self.sessions.contains_key(session);
-        let new_domain = self.sessions.get(session).is_none_or(|s| !s.domains.contains_key(&domain.0));
         let pass = {
             let state = self.sessions.entry(*session).or_default();
             let template_count = state.template_count;

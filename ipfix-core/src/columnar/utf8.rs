@@ -115,10 +115,20 @@ impl TextBuilder {
         self.values.truncate(self.pending_start());
         self.values.reserve(s.len().saturating_mul(n));
         self.offsets.reserve(n);
-        for _ in 0..n {
-            let start = self.values.len();
-            self.values.extend_from_slice(s.as_bytes());
-            self.close(start);
+        let mut padded = [0u8; 48];
+        match padded.get_mut(..s.len()) {
+            // Addresses (the exporter column): fixed-size copies.
+            Some(dst) => {
+                dst.copy_from_slice(s.as_bytes());
+                (0..n).for_each(|_| self.append_short(&padded, s.len()));
+            }
+            None => {
+                for _ in 0..n {
+                    let start = self.values.len();
+                    self.values.extend_from_slice(s.as_bytes());
+                    self.close(start);
+                }
+            }
         }
     }
 
@@ -222,7 +232,22 @@ pub(crate) fn ipv4_text(a: [u8; 4], out: &mut [u8; 16]) -> usize {
     n
 }
 
-const HEX: &[u8; 16] = b"0123456789abcdef";
+/// Lower-case hex of every octet value.
+const fn hex_pairs() -> [[u8; 2]; 256] {
+    const HEX: &[u8; 16] = b"0123456789abcdef";
+    let mut t = [[0u8; 2]; 256];
+    let mut i = 0;
+    while i < 256 {
+        #[allow(clippy::indexing_slicing, reason = "const fn; i < 256 and nibbles < 16")]
+        {
+            t[i] = [HEX[i >> 4], HEX[i & 0xf]];
+        }
+        i += 1;
+    }
+    t
+}
+
+static HEX_PAIRS: [[u8; 2]; 256] = hex_pairs();
 
 /// Writes an IPv6 address in the RFC 5952 text form into `out`; returns the
 /// length. Lower-case hex without leading zeros (§4.1, §4.3), the longest
@@ -236,27 +261,28 @@ pub(crate) fn ipv6_text(a: &[u8; 16], out: &mut [u8; 48]) -> usize {
         *s = u16::from_be_bytes([pair.first().copied().unwrap_or(0), pair.get(1).copied().unwrap_or(0)]);
     }
     let mut n = 0usize;
-    let mut put = |b: u8, n: &mut usize| {
-        if let Some(slot) = out.get_mut(*n) {
-            *slot = b;
+    // Writes up to 4 octets at `n` (the buffer has room past the longest text).
+    let mut put4 = |w: [u8; 4], len: usize, n: &mut usize| {
+        if let Some(dst) = out.get_mut(*n..*n + 4) {
+            dst.copy_from_slice(&w);
         }
-        *n += 1;
+        *n += len;
     };
     if let [0, 0, 0, 0, 0, 0xffff, _, _] = seg {
         // §5: IPv4-mapped, the last 32 bits in dotted decimal.
-        for b in *b"::ffff:" {
-            put(b, &mut n);
-        }
+        put4(*b"::ff", 4, &mut n);
+        put4(*b"ff:\0", 3, &mut n);
         let mut v4 = [0u8; 16];
         let [.., w, x, y, z] = *a;
         let len = ipv4_text([w, x, y, z], &mut v4);
-        for b in v4.into_iter().take(len) {
-            put(b, &mut n);
+        for chunk in v4.chunks_exact(4).take(len.div_ceil(4)) {
+            let c: [u8; 4] = chunk.try_into().unwrap_or_default();
+            put4(c, 4, &mut n);
         }
-        return n;
+        return 7 + len;
     }
     // §4.2.3: the longest run of zero groups, the first if tied; §4.2.2: not a single one.
-    let (mut best, mut best_len, mut run, mut run_len) = (0usize, 0usize, 0usize, 0usize);
+    let (mut best, mut best_len, mut run, mut run_len) = (8usize, 0usize, 0usize, 0usize);
     for (i, s) in seg.iter().enumerate() {
         if *s == 0 {
             if run_len == 0 {
@@ -272,25 +298,27 @@ pub(crate) fn ipv6_text(a: &[u8; 16], out: &mut [u8; 48]) -> usize {
         }
     }
     if best_len < 2 {
-        best_len = 0;
         best = 8;
+        best_len = 0;
     }
     let mut i = 0usize;
     while i < 8 {
         if i == best {
-            put(b':', &mut n);
-            put(b':', &mut n);
+            put4(*b"::\0\0", 2, &mut n);
             i += best_len;
             continue;
         }
         if i > 0 && i != best + best_len {
-            put(b':', &mut n);
+            put4(*b":\0\0\0", 1, &mut n);
         }
         let s = seg.get(i).copied().unwrap_or(0);
+        let [hi, lo] = s.to_be_bytes();
+        let [h0, h1] = HEX_PAIRS.get(usize::from(hi)).copied().unwrap_or_default();
+        let [l0, l1] = HEX_PAIRS.get(usize::from(lo)).copied().unwrap_or_default();
+        // §4.1: no leading zeros; the digits are shifted to the front.
         let digits = (4 - (s.leading_zeros() / 4) as usize).max(1);
-        for k in (0..digits).rev() {
-            put(HEX.get(usize::from((s >> (4 * k)) & 0xf)).copied().unwrap_or(b'0'), &mut n);
-        }
+        let w = u32::from_be_bytes([h0, h1, l0, l1]) << (8 * (4 - digits));
+        put4(w.to_be_bytes(), digits, &mut n);
         i += 1;
     }
     n

@@ -13,7 +13,7 @@ use arrow::array::{
 };
 use arrow::datatypes::{DataType as ArrowType, Field, TimeUnit};
 
-use super::derive::{be_uint, group, DerivedPlan, DerivedRow, SetContext};
+use super::derive::{be_uint, forwarding_texts, group, DerivedPlan, DerivedRow, SetContext};
 use super::enrich::{Enrichment, IdMap};
 use super::schema::{
     column_name, element_type, name_value_fields, record_struct_fields, write_field_name, ColumnRole, TableKind,
@@ -951,7 +951,28 @@ impl TableBuilder {
                 None => {}
             }
         }
-        if let Some(base) = self.fixed.derived.filter(|_| groups != 0) {
+        let Some(base) = self.fixed.derived.filter(|_| groups != 0) else { return n };
+        let mut groups = groups;
+        if let Some((_, end)) = map.derived.fwd.and_then(|i| layout.get(i)).filter(|_| groups & group::FWD != 0) {
+            // forwardingOutcome/Reason column by column: only the
+            // least-significant octet has a meaning (IANA IE 89).
+            let texts = forwarding_texts();
+            if let Some([Column::Scalar(Scalar::Utf8(outcome)), Column::Scalar(Scalar::Utf8(reason))]) =
+                self.columns.get_mut(base..base + 2)
+            {
+                for r in records.clone() {
+                    let octet = end.checked_sub(1).and_then(|i| r.get(i)).copied().unwrap_or(0);
+                    let Some((o, why)) = texts.get(usize::from(octet)) else { continue };
+                    outcome.append_name(o);
+                    match why {
+                        Some(w) => reason.append_name(w),
+                        None => reason.append_null(),
+                    }
+                }
+                groups &= !group::FWD;
+            }
+        }
+        if groups != 0 {
             for data in records {
                 let raw = |i: usize| layout.get(i).and_then(|(s, e)| data.get(*s..*e));
                 let row = map.derived.compute(groups, raw, ctx, &mut self.labels, &mut self.stats);

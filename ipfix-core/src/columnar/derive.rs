@@ -5,6 +5,7 @@ use arrow::datatypes::{DataType as ArrowType, TimeUnit};
 
 use super::enrich::{DomainInfo, SamplingParams};
 use super::schema::timestamp;
+use super::utf8::Name;
 use super::ColumnarStats;
 use crate::ie::{self, id, ForwardingStatus, LabelStackEntry};
 use crate::plan::{Decode, Plan};
@@ -321,6 +322,18 @@ fn forwarding_names() -> &'static [(&'static str, Option<&'static str>); 256] {
             *slot = (s.outcome().name(), s.reason_name());
         }
         t
+    })
+}
+
+/// [`forwarding_names`] padded for fixed-size copies into text columns.
+pub(crate) fn forwarding_texts() -> &'static [(Name, Option<Name>); 256] {
+    static TEXTS: std::sync::OnceLock<[(Name, Option<Name>); 256]> = std::sync::OnceLock::new();
+    TEXTS.get_or_init(|| {
+        let names = forwarding_names();
+        std::array::from_fn(|i| {
+            let (outcome, reason) = names.get(i).copied().unwrap_or(("unknown", None));
+            (Name::new(outcome), reason.map(Name::new))
+        })
     })
 }
 

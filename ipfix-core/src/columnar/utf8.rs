@@ -149,6 +149,39 @@ impl TextBuilder {
     }
 }
 
+/// A fixed text (a registry name) kept padded for fixed-size copies.
+#[derive(Debug, Clone, Copy)]
+pub(crate) enum Name {
+    /// Up to 32 octets, padded.
+    Short([u8; 32], usize),
+    /// Longer names, copied as usual.
+    Long(&'static str),
+}
+
+impl Name {
+    pub(crate) fn new(s: &'static str) -> Self {
+        let mut padded = [0u8; 32];
+        match padded.get_mut(..s.len()) {
+            Some(dst) => {
+                dst.copy_from_slice(s.as_bytes());
+                Self::Short(padded, s.len())
+            }
+            None => Self::Long(s),
+        }
+    }
+}
+
+impl TextBuilder {
+    /// Appends a [`Name`].
+    #[inline]
+    pub(crate) fn append_name(&mut self, name: &Name) {
+        match name {
+            Name::Short(bytes, len) => self.append_short(bytes, *len),
+            Name::Long(s) => self.append_value(s),
+        }
+    }
+}
+
 impl fmt::Write for TextBuilder {
     #[inline]
     fn write_str(&mut self, s: &str) -> fmt::Result {
@@ -385,10 +418,12 @@ mod tests {
         b.append_nulls(2);
         b.append_repeated("zz", 2);
         b.append_option(None);
+        b.append_name(&Name::new("acl-deny"));
+        b.append_name(&Name::new("a-registry-name-longer-than-32-octets"));
         let a = b.finish();
         let a = a.as_any().downcast_ref::<StringArray>().unwrap();
         let got: Vec<Option<&str>> = a.iter().collect();
-        assert_eq!(got, [Some("abc"), None, Some("x7y"), None, None, Some("zz"), Some("zz"), None]);
+        assert_eq!(got, [Some("abc"), None, Some("x7y"), None, None, Some("zz"), Some("zz"), None, Some("acl-deny"), Some("a-registry-name-longer-than-32-octets")]);
         assert_eq!(b.len(), 0);
         b.append_value("again");
         assert_eq!(b.finish().len(), 1);

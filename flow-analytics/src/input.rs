@@ -159,6 +159,113 @@ impl Inputs {
     }
 }
 
+impl Inputs {
+    /// The earliest and latest record time (`flowEndTime`, else
+    /// `exportTime`) over every row of every input, in nanoseconds since
+    /// 1970, read from the footer statistics alone. `None` when the footers
+    /// cannot tell exactly (statistics missing, a row group where only some
+    /// `flowEndTime` values are null, a time column that is not a Parquet
+    /// timestamp, or a partition column of that name); the caller then
+    /// reads the rows. The inner `None`s: no row has a time.
+    pub(crate) fn record_time_bounds(&self) -> Option<(Option<i64>, Option<i64>)> {
+        let mut bounds = TimeBounds::default();
+        for group in &self.groups {
+            let partitioned = group.partitions.iter().any(|(key, _)| {
+                key == contract::FLOW_END_TIME || key == contract::EXPORT_TIME
+            });
+            if partitioned {
+                return None;
+            }
+            for path in &group.paths {
+                file_time_bounds(path, &mut bounds)?;
+            }
+        }
+        Some((bounds.min, bounds.max))
+    }
+}
+
+/// Running minimum and maximum of record times, in nanoseconds.
+#[derive(Default)]
+struct TimeBounds {
+    min: Option<i64>,
+    max: Option<i64>,
+}
+
+impl TimeBounds {
+    fn add(&mut self, min: i64, max: i64) {
+        self.min = Some(self.min.map_or(min, |m| m.min(min)));
+        self.max = Some(self.max.map_or(max, |m| m.max(max)));
+    }
+}
+
+/// Statistics of one time column in one row group.
+struct ChunkTimes {
+    nulls: usize,
+    /// Minimum and maximum in nanoseconds; `None` when every value is null.
+    range: Option<(i64, i64)>,
+}
+
+/// Adds the record-time range of one file to `bounds`; `None` when its
+/// footer cannot tell exactly.
+fn file_time_bounds(path: &Path, bounds: &mut TimeBounds) -> Option<()> {
+    use polars_parquet::parquet::read::read_metadata;
+    let mut file = fs::File::open(path).ok()?;
+    let metadata = read_metadata(&mut file).ok()?;
+    for row_group in &metadata.row_groups {
+        let rows = row_group.num_rows();
+        let end = chunk_times(row_group, contract::FLOW_END_TIME, &metadata.footer_buf)?;
+        let export = chunk_times(row_group, contract::EXPORT_TIME, &metadata.footer_buf)?;
+        // Rows take flowEndTime when it is there, else exportTime.
+        let range = match end {
+            Some(end) if end.nulls == 0 => Some(end.range?),
+            Some(end) if end.nulls == rows => export.and_then(|e| e.range),
+            Some(_) => return None,
+            None => export.and_then(|e| e.range),
+        };
+        if let Some((min, max)) = range {
+            bounds.add(min, max);
+        }
+    }
+    Some(())
+}
+
+/// The statistics of a top-level timestamp column in a row group:
+/// `Some(None)` when the file has no such column, `None` when the
+/// statistics are missing or the column is not an INT64 timestamp.
+fn chunk_times(
+    row_group: &polars_parquet::parquet::metadata::RowGroupMetadata,
+    name: &str,
+    footer: &[u8],
+) -> Option<Option<ChunkTimes>> {
+    use polars_parquet::parquet::schema::types::{PrimitiveLogicalType, TimeUnit as PqUnit};
+    use polars_parquet::parquet::statistics::Statistics;
+    let Some(mut chunks) = row_group.columns_under_root_iter(name) else {
+        return Some(None);
+    };
+    let chunk = chunks.next()?;
+    if chunks.next().is_some() {
+        return None;
+    }
+    let scale: i64 = match chunk.descriptor().descriptor.primitive_type.logical_type {
+        Some(PrimitiveLogicalType::Timestamp { unit, .. }) => match unit {
+            PqUnit::Milliseconds => 1_000_000,
+            PqUnit::Microseconds => 1_000,
+            PqUnit::Nanoseconds => 1,
+        },
+        _ => return None,
+    };
+    let Statistics::Int64(stats) = chunk.statistics(footer)?.ok()? else {
+        return None;
+    };
+    let nulls = usize::try_from(stats.null_count?).ok()?;
+    let range = match (stats.min_value, stats.max_value) {
+        (Some(min), Some(max)) => Some((min.checked_mul(scale)?, max.checked_mul(scale)?)),
+        (None, None) if nulls == row_group.num_rows() => None,
+        _ => return None,
+    };
+    Some(Some(ChunkTimes { nulls, range }))
+}
+
 /// How one group supplies `name`: its own column (cast if its type differs
 /// from the union's), else its partition value, else typed nulls. When both
 /// the file and the path carry a value, the file's wins unless null.

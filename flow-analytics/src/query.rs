@@ -276,6 +276,7 @@ impl DropQuery {
             key_names,
             companions,
             reason_is_key,
+            time_bounds,
         } = prepared;
         let bucketed = self.every.is_some();
         let stage1 = collect_streaming(stage1)?;
@@ -302,7 +303,7 @@ impl DropQuery {
             Some(groups) if groups.height() > 0 => Some(top_group(groups, &plans, reason_is_key)?),
             _ => None,
         };
-        let summary = summarize(&totals, top)?;
+        let summary = summarize(&totals, top, time_bounds)?;
 
         let groups = table.height();
         let table = keep_top(table, self.top, bucketed)?;
@@ -362,6 +363,15 @@ impl DropQuery {
         let filter = self.parse_filter()?;
 
         let inputs = Inputs::open(&self.inputs)?;
+        // Over all rows (no filter, no time bounds, no buckets) the time
+        // range of drops' summary is in the footers' statistics when they
+        // tell it exactly; then the time columns are not read at all.
+        let unfiltered = filter.is_none() && every_ns.is_none() && from_ns.is_none() && to_ns.is_none();
+        let time_bounds = if unfiltered && !with_moments {
+            inputs.record_time_bounds()
+        } else {
+            None
+        };
 
         // Which input columns to read, and as which type.
         let mut wanted: Vec<String> = [
@@ -434,7 +444,9 @@ impl DropQuery {
         }
 
         let present = |name: &str| inputs.dtype(name).is_some();
-        let lf = lf.with_columns(record_measures(Some(record_time), &present));
+        let record_time = time_bounds.is_none().then_some(record_time);
+        let with_time = record_time.is_some();
+        let lf = lf.with_columns(record_measures(record_time, &present));
         let mut derived: Vec<Expr> = Vec::new();
         let mut group1: Vec<String> = Vec::new();
         if let Some(every) = every_ns {
@@ -461,7 +473,7 @@ impl DropQuery {
             .collect();
 
         // Stage 1: one row per group and reason (and bucket).
-        let mut aggs = stage1_aggs(with_moments);
+        let mut aggs = stage1_aggs(with_moments, with_time);
         aggs.extend(companion_aggs(&companions));
         let stage1 = lf
             .with_columns(derived)
@@ -473,6 +485,7 @@ impl DropQuery {
             key_names,
             companions,
             reason_is_key,
+            time_bounds,
         })
     }
 
@@ -554,6 +567,9 @@ struct Prepared {
     companions: Vec<String>,
     /// Whether `forwardingReason` is one of the keys.
     reason_is_key: bool,
+    /// Earliest and latest record time (ns) from the footers; stage 1 then
+    /// has no `_fs_first`/`_fs_last`.
+    time_bounds: Option<(Option<i64>, Option<i64>)>,
 }
 
 /// The group-key output names of the dimensions, checked for clashes.
@@ -654,8 +670,8 @@ fn record_measures(record_time: Option<Expr>, present: &dyn Fn(&str) -> bool) ->
 
 /// Stage-1 aggregations over records; `with_moments` adds the sampled
 /// total packets, the records that dropped and the second moments used by
-/// `compare`.
-fn stage1_aggs(with_moments: bool) -> Vec<Expr> {
+/// `compare`; `with_time` the earliest and latest record time.
+fn stage1_aggs(with_moments: bool, with_time: bool) -> Vec<Expr> {
     let mut aggs = vec![
         col(W_DP).sum().alias(DROPPED_PACKETS),
         col(W_DO).sum().alias(DROPPED_OCTETS),
@@ -666,9 +682,13 @@ fn stage1_aggs(with_moments: bool) -> Vec<Expr> {
         col(W_VAR).sum().alias(W_VAR),
         col(W_KNOWN).sum().alias(W_KNOWN),
         col(W_N).max().alias(A_MAX_RATE),
-        col(W_TIME).min().alias(A_FIRST),
-        col(W_TIME).max().alias(A_LAST),
     ];
+    if with_time {
+        aggs.extend([
+            col(W_TIME).min().alias(A_FIRST),
+            col(W_TIME).max().alias(A_LAST),
+        ]);
+    }
     if with_moments {
         let f = |c: &str| col(c).cast(DataType::Float64);
         aggs.extend([
@@ -712,8 +732,10 @@ fn regroup(
     .map(|c| col(*c).sum().alias(*c))
     .collect();
     aggs.push(col(A_MAX_RATE).max().alias(A_MAX_RATE));
-    aggs.push(col(A_FIRST).min().alias(A_FIRST));
-    aggs.push(col(A_LAST).max().alias(A_LAST));
+    if stage1.schema().contains(A_FIRST) {
+        aggs.push(col(A_FIRST).min().alias(A_FIRST));
+        aggs.push(col(A_LAST).max().alias(A_LAST));
+    }
     aggs.extend(companion_aggs(companions));
     if with_top_reason {
         // The reason with most dropped packets; ties go to the name first
@@ -862,8 +884,13 @@ fn top_group(
     })
 }
 
-/// Headline facts from the one-row totals frame.
-fn summarize(totals: &DataFrame, top: Option<TopGroup>) -> Result<DropSummary, Error> {
+/// Headline facts from the one-row totals frame; the time range from
+/// `time_bounds` (ns) when given, else from the frame.
+fn summarize(
+    totals: &DataFrame,
+    top: Option<TopGroup>,
+    time_bounds: Option<(Option<i64>, Option<i64>)>,
+) -> Result<DropSummary, Error> {
     let records = u64_at(totals, FLOW_RECORDS, 0)?;
     let known = u64_at(totals, W_KNOWN, 0)?;
     let sampling = if records == 0 {
@@ -878,6 +905,13 @@ fn summarize(totals: &DataFrame, top: Option<TopGroup>) -> Result<DropSummary, E
             unknown: records - known,
         }
     };
+    let (first, last) = match time_bounds {
+        Some((first, last)) => (
+            first.map(DateTime::from_timestamp_nanos),
+            last.map(DateTime::from_timestamp_nanos),
+        ),
+        None => (time_at(totals, A_FIRST, 0)?, time_at(totals, A_LAST, 0)?),
+    };
     Ok(DropSummary {
         dropped_packets: u64_at(totals, DROPPED_PACKETS, 0)?,
         dropped_octets: u64_at(totals, DROPPED_OCTETS, 0)?,
@@ -887,8 +921,8 @@ fn summarize(totals: &DataFrame, top: Option<TopGroup>) -> Result<DropSummary, E
         drop_ratio: f64_at(totals, DROP_RATIO, 0)?,
         dropped_packets_low: f64_at(totals, DROPPED_PACKETS_LOW, 0)?,
         dropped_packets_high: f64_at(totals, DROPPED_PACKETS_HIGH, 0)?,
-        first: time_at(totals, A_FIRST, 0)?,
-        last: time_at(totals, A_LAST, 0)?,
+        first,
+        last,
         sampling,
         scaled: u64_at(totals, A_MAX_RATE, 0)? > 1,
         top,

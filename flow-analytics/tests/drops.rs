@@ -581,6 +581,66 @@ fn reads_only_needed_columns() {
     assert!(!plan.contains("destinationIPv4Address"), "{plan}");
 }
 
+/// exportTime in seconds after T0, stored as ms UTC.
+fn export_times(offsets: &[Option<i64>]) -> Column {
+    let ms: Vec<Option<i64>> = offsets.iter().map(|o| o.map(|s| (T0 + s) * 1000)).collect();
+    Column::new("exportTime".into(), ms)
+        .cast(&DataType::Datetime(TimeUnit::Milliseconds, Some(TimeZone::UTC)))
+        .unwrap()
+}
+
+#[test]
+fn time_range_from_footers_matches_the_rows() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let counts = |n: usize| u64s("packetDeltaCount", &vec![Some(1); n]);
+    // flowEndTime everywhere: exportTime does not count.
+    let whole = write(
+        &d.join("whole.parquet"),
+        vec![
+            counts(3),
+            times("flowEndTime", &[Some(300), Some(10), Some(20)]),
+            export_times(&[Some(-500), Some(-500), Some(900)]),
+        ],
+    );
+    // No flowEndTime column: exportTime.
+    let export_only = write(&d.join("export-only.parquet"), vec![counts(2), export_times(&[Some(-40), Some(20)])]);
+    // flowEndTime null throughout: exportTime.
+    let end_null = write(
+        &d.join("end-null.parquet"),
+        vec![counts(1), times("flowEndTime", &[None]), export_times(&[Some(400)])],
+    );
+    // flowEndTime null in some rows only: the footer cannot tell.
+    let partial = write(
+        &d.join("partial.parquet"),
+        vec![
+            counts(2),
+            times("flowEndTime", &[Some(50), None]),
+            export_times(&[Some(-900), Some(-60)]),
+        ],
+    );
+    let at = |s: i64| Some(chrono::DateTime::from_timestamp(T0 + s, 0).unwrap());
+    let cases: [(Vec<&PathBuf>, bool, (i64, i64)); 3] = [
+        (vec![&whole], true, (10, 300)),
+        (vec![&whole, &export_only, &end_null], true, (-40, 400)),
+        (vec![&whole, &partial], false, (-60, 300)),
+    ];
+    for (inputs, from_footers, (first, last)) in cases {
+        let plan = DropQuery::new(inputs.clone()).explain().unwrap();
+        assert_eq!(!plan.contains("flowEndTime"), from_footers, "{plan}");
+        let footers = DropQuery::new(inputs.clone()).run().unwrap();
+        // A filter that keeps every row makes the query read the times.
+        let rows = DropQuery::new(inputs.clone())
+            .with_filter_sql("packetDeltaCount >= 0")
+            .run()
+            .unwrap();
+        for table in [&footers, &rows] {
+            assert_eq!(table.summary().first, at(first), "{inputs:?}");
+            assert_eq!(table.summary().last, at(last), "{inputs:?}");
+        }
+    }
+}
+
 #[test]
 fn input_errors() {
     let dir = tempfile::tempdir().unwrap();

@@ -222,14 +222,14 @@ fn bench(c: &mut Criterion) {
 mod columnar {
     //! The same messages decoded and appended to the Arrow builders of the
     //! Parquet writer (`ipfix_core::columnar::TableBuilder`), the way
-    //! `flowsift convert` does it, one batch per 128k rows.
+    //! `flowsift convert` does it, one batch per `DEFAULT_BATCH_ROWS` rows.
     use std::hint::black_box;
     use std::sync::Arc;
     use std::time::Duration;
 
     use criterion::measurement::WallTime;
     use criterion::BenchmarkGroup;
-    use ipfix_core::columnar::{Enrichment, TableBuilder, TableSchema};
+    use ipfix_core::columnar::{Enrichment, TableBuilder, TableSchema, DEFAULT_BATCH_ROWS};
     use ipfix_core::{Config, Decoder, Event, TransportSession};
 
     pub fn bench_arrow(g: &mut BenchmarkGroup<'_, WallTime>, w: &super::Workload) {
@@ -247,13 +247,13 @@ mod columnar {
         g.bench_function("decode-to-arrow-builders", |b| {
             b.iter(|| {
                 let mut decoder = Decoder::new(Config::default());
-                let mut builder = TableBuilder::new(schema.clone(), 128 * 1024);
+                let mut builder = TableBuilder::new(schema.clone(), DEFAULT_BATCH_ROWS);
                 let mut rows = 0usize;
                 for m in &w.messages {
                     for ev in decoder.decode(&session, now, m).unwrap() {
                         if let Event::Data(set) = ev {
                             rows += builder.append(&set, &enrichment);
-                            if builder.len() >= 128 * 1024 {
+                            if builder.len() >= DEFAULT_BATCH_ROWS {
                                 black_box(builder.finish().unwrap());
                             }
                         }

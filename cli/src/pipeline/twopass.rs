@@ -28,6 +28,7 @@ use anyhow::{anyhow, Context};
 use arrow::array::RecordBatch;
 use ipfix_core::columnar::{
     ColumnarStats, Enrichment, EnrichmentStats, ParquetSink, SinkOptions, TableBuilder, TableKind, TableSchema,
+    DEFAULT_BATCH_ROWS,
 };
 use ipfix_core::{Event, Plan, Template};
 use serde::Serialize;
@@ -37,8 +38,6 @@ use super::{Accounting, Inputs, Progress, Runner};
 /// Batches waiting for the writer thread. Two keep the decoder busy while
 /// one is compressed.
 const CHANNEL_BATCHES: usize = 2;
-/// Most rows per batch handed to the writer.
-const BATCH_ROWS: usize = 32 * 1024;
 /// Rows reserved up front for the options builder (options tables are small).
 const OPTIONS_CAPACITY: usize = 8192;
 
@@ -158,7 +157,7 @@ pub fn convert(inputs: &Inputs, settings: &ConvertSettings, progress: &Progress)
     // Batches smaller than a row group: the writer encodes each as it comes
     // and closes the row group when it is full, so memory holds a few small
     // batches plus one row group's encoded pages.
-    let rows = settings.sink.row_group_rows.clamp(1, BATCH_ROWS);
+    let rows = settings.sink.row_group_rows.clamp(1, DEFAULT_BATCH_ROWS);
     let mut flows = TableBuilder::new(flows_schema.clone(), rows);
     let mut options = TableBuilder::new(options_schema.clone(), rows.min(OPTIONS_CAPACITY));
     let waited = Cell::new(Duration::ZERO);

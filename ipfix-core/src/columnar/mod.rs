@@ -150,7 +150,9 @@ pub use schema::{
     basic_list_item_type, column_name, element_type, record_struct_type, ColumnRole, ColumnSpec, Provenance,
     TableKind, TableSchema, CONTRACT_VERSION,
 };
-pub use sink::{Compression, ParquetSink, SinkOptions, SinkSummary, TableWriter, DEFAULT_ROW_GROUP_ROWS};
+pub use sink::{
+    Compression, ParquetSink, SinkOptions, SinkSummary, TableWriter, DEFAULT_BATCH_ROWS, DEFAULT_ROW_GROUP_ROWS,
+};
 pub use text::write_value_text;
 
 /// What can go wrong building batches or writing Parquet. Input never

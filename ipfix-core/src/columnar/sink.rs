@@ -55,6 +55,13 @@ impl Compression {
 /// Default rows per row group (and per batch of a [`TableWriter`]).
 pub const DEFAULT_ROW_GROUP_ROWS: usize = 128 * 1024;
 
+/// Rows per Arrow batch handed to the Parquet writer. Smaller than a row
+/// group: the writer encodes each batch as it comes and closes the row group
+/// when it is full, so the row groups are the same, while the builders'
+/// buffers stay small enough for the allocator to reuse them (fresh memory
+/// for every 128k-row batch cost a fifth of the decode time in page faults).
+pub const DEFAULT_BATCH_ROWS: usize = 8 * 1024;
+
 /// How a [`ParquetSink`] writes.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub struct SinkOptions {
@@ -224,8 +231,8 @@ impl<W: Write + Send> TableWriter<W> {
     /// Starts a file on `out` for `schema`.
     pub fn try_new(out: W, schema: Arc<TableSchema>, options: SinkOptions) -> Result<Self, ColumnarError> {
         let sink = ParquetSink::try_new(out, &schema, options)?;
-        let rows_per_batch = options.row_group_rows.max(1);
-        let builder = TableBuilder::new(schema, rows_per_batch.min(1 << 20));
+        let rows_per_batch = options.row_group_rows.clamp(1, DEFAULT_BATCH_ROWS);
+        let builder = TableBuilder::new(schema, rows_per_batch);
         Ok(Self { builder, sink, rows_per_batch })
     }
 

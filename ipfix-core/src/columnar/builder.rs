@@ -6,7 +6,7 @@ use std::slice::ChunksExact;
 use std::sync::Arc;
 
 use arrow::array::{
-    ArrayBuilder, ArrayRef, ArrowPrimitiveType, BinaryBuilder, PrimitiveBuilder, BooleanBuilder, FixedSizeBinaryBuilder, Float32Builder, Float64Builder,
+    ArrayBuilder, ArrayRef, ArrowPrimitiveType, PrimitiveBuilder, BooleanBuilder, FixedSizeBinaryBuilder, Float32Builder, Float64Builder,
     Int16Builder, Int32Builder, Int64Builder, Int8Builder, ListBuilder, RecordBatch, StringBuilder, StructBuilder,
     TimestampMicrosecondBuilder, TimestampMillisecondBuilder, TimestampNanosecondBuilder, TimestampSecondBuilder,
     UInt16Builder, UInt32Builder, UInt64Builder, UInt8Builder,
@@ -43,7 +43,7 @@ pub(crate) enum Scalar {
     F64(Float64Builder),
     Bool(BooleanBuilder),
     Utf8(TextBuilder),
-    Binary(BinaryBuilder),
+    Binary(TextBuilder),
     Fsb(FixedSizeBinaryBuilder),
     TsS(TimestampSecondBuilder),
     TsMs(TimestampMillisecondBuilder),
@@ -188,7 +188,7 @@ impl Scalar {
             ArrowType::Float64 => Self::F64(Float64Builder::with_capacity(capacity)),
             ArrowType::Boolean => Self::Bool(BooleanBuilder::with_capacity(capacity)),
             ArrowType::Utf8 => Self::Utf8(TextBuilder::with_capacity(capacity, capacity.saturating_mul(16))),
-            ArrowType::Binary => Self::Binary(BinaryBuilder::with_capacity(capacity, capacity.saturating_mul(8))),
+            ArrowType::Binary => Self::Binary(TextBuilder::binary_with_capacity(capacity, capacity.saturating_mul(8))),
             ArrowType::FixedSizeBinary(w) => Self::Fsb(FixedSizeBinaryBuilder::with_capacity(capacity, *w)),
             ArrowType::Timestamp(TimeUnit::Second, _) => {
                 Self::TsS(TimestampSecondBuilder::with_capacity(capacity).with_timezone(tz))
@@ -279,7 +279,7 @@ impl Scalar {
                 },
                 _ => null_invalid(b, stats),
             },
-            Self::Binary(b) => b.append_value(raw),
+            Self::Binary(b) => b.append_bytes(raw),
             Self::Fsb(b) => {
                 // unsigned256 sent reduced (RFC 7011 §6.2 by analogy): left-pad to 32.
                 let mut wide = [0u8; 32];
@@ -370,6 +370,16 @@ impl Scalar {
                 }
                 true
             }
+            (Self::Binary(b), _) if len <= 16 => {
+                for r in records.clone() {
+                    // A fixed-size copy where the record leaves room for one.
+                    match r.get(s..).and_then(|t| t.first_chunk::<16>()) {
+                        Some(c) => b.append_short(c, len),
+                        None => b.append_bytes(r.get(s..e).unwrap_or_default()),
+                    }
+                }
+                true
+            }
             _ => false,
         };
         if !done {
@@ -426,7 +436,7 @@ impl Scalar {
                 true
             }
             (Self::Binary(b), Value::Octets(x)) => {
-                b.append_value(x);
+                b.append_bytes(x);
                 true
             }
             (Self::Fsb(b), Value::Unsigned256(x)) => {
@@ -705,7 +715,7 @@ impl TableBuilder {
                 // Every schema type has a builder (tests check each); Binary
                 // is only a defensive fallback.
                 Column::new(&c.data_type, capacity)
-                    .unwrap_or_else(|| Column::Scalar(Scalar::Binary(BinaryBuilder::with_capacity(capacity, 0))))
+                    .unwrap_or_else(|| Column::Scalar(Scalar::Binary(TextBuilder::binary_with_capacity(capacity, 0))))
             })
             .collect();
         let pos = |name: &str| schema.column_index(name).unwrap_or(UNPLACED);

@@ -1,5 +1,5 @@
-//! The Utf8 column builder, shaped for the short texts of the hot path:
-//! addresses, names and forwarding reasons.
+//! The Utf8 and Binary column builder, shaped for the short values of the
+//! hot path: addresses, names, forwarding reasons, label stack sections.
 //!
 //! Arrow's own string builder copies each value with a call to `memcpy`;
 //! for texts of a dozen octets that call costs more than the copy. Here a
@@ -8,7 +8,7 @@
 //! buffers become a [`StringArray`] through Arrow's checked constructor, so
 //! a bug here shows up as an error, never as an invalid array.
 //!
-//! Offsets are 32-bit, as Utf8 requires. A value that would carry a batch's
+//! Offsets are 32-bit, as Utf8 and Binary require. A value that would carry a batch's
 //! text past 2 GiB is written as null and counted rather than panicking.
 
 use std::any::Any;
@@ -16,12 +16,14 @@ use std::fmt;
 use std::sync::Arc;
 
 use arrow::array::builder::NullBufferBuilder;
-use arrow::array::{ArrayBuilder, ArrayRef, StringArray};
+use arrow::array::{ArrayBuilder, ArrayRef, BinaryArray, StringArray};
 use arrow::buffer::{Buffer, OffsetBuffer, ScalarBuffer};
 
-/// A Utf8 column under construction.
+/// A Utf8 (or Binary) column under construction.
 #[derive(Debug)]
 pub(crate) struct TextBuilder {
+    /// Finish as Binary rather than Utf8.
+    binary: bool,
     /// Always one more than the number of values; starts with 0.
     offsets: Vec<i32>,
     values: Vec<u8>,
@@ -35,7 +37,12 @@ impl TextBuilder {
     pub(crate) fn with_capacity(items: usize, bytes: usize) -> Self {
         let mut offsets = Vec::with_capacity(items + 1);
         offsets.push(0);
-        Self { offsets, values: Vec::with_capacity(bytes), nulls: NullBufferBuilder::new(items), overflowed: 0 }
+        Self { binary: false, offsets, values: Vec::with_capacity(bytes), nulls: NullBufferBuilder::new(items), overflowed: 0 }
+    }
+
+    /// A Binary column with room for `items` values of `bytes` octets in all.
+    pub(crate) fn binary_with_capacity(items: usize, bytes: usize) -> Self {
+        Self { binary: true, ..Self::with_capacity(items, bytes) }
     }
 
     /// Closes the value that started at `start` in the values buffer
@@ -71,13 +78,20 @@ impl TextBuilder {
     /// formatted text).
     #[inline]
     pub(crate) fn append_value(&mut self, s: &str) {
+        self.append_bytes(s.as_bytes());
+    }
+
+    /// Appends octets (Binary columns; UTF-8 only for Utf8 columns).
+    #[inline]
+    pub(crate) fn append_bytes(&mut self, b: &[u8]) {
         let start = self.values.len();
-        self.values.extend_from_slice(s.as_bytes());
+        self.values.extend_from_slice(b);
         self.close(start);
     }
 
-    /// Appends the first `len` octets of `buf`, which must be UTF-8 (the
-    /// callers give ASCII): a fixed-size copy, then the tail is cut off.
+    /// Appends the first `len` octets of `buf`, which must be UTF-8 in a
+    /// Utf8 column (the callers give ASCII): a fixed-size copy, then the
+    /// tail is cut off.
     #[inline]
     pub(crate) fn append_short<const N: usize>(&mut self, buf: &[u8; N], len: usize) {
         let start = self.values.len();
@@ -132,20 +146,30 @@ impl TextBuilder {
         }
     }
 
-    fn build(offsets: Vec<i32>, values: Vec<u8>, nulls: Option<arrow::buffer::NullBuffer>) -> ArrayRef {
+    fn build(binary: bool, offsets: Vec<i32>, values: Vec<u8>, nulls: Option<arrow::buffer::NullBuffer>) -> ArrayRef {
         let len = offsets.len().saturating_sub(1);
-        if offsets.is_empty() {
-            return Arc::new(StringArray::new_null(0));
-        }
-        let offsets = OffsetBuffer::new(ScalarBuffer::from(offsets));
-        match StringArray::try_new(offsets, Buffer::from_vec(values), nulls) {
-            Ok(a) => Arc::new(a),
-            Err(e) => {
-                // Every writer here gives UTF-8 and monotonic offsets.
-                debug_assert!(false, "text column: {e}");
+        let empty = || -> ArrayRef {
+            if binary {
+                Arc::new(BinaryArray::new_null(len))
+            } else {
                 Arc::new(StringArray::new_null(len))
             }
+        };
+        if offsets.is_empty() {
+            return empty();
         }
+        let offsets = OffsetBuffer::new(ScalarBuffer::from(offsets));
+        let values = Buffer::from_vec(values);
+        let built: Result<ArrayRef, _> = if binary {
+            BinaryArray::try_new(offsets, values, nulls).map(|a| Arc::new(a) as ArrayRef)
+        } else {
+            StringArray::try_new(offsets, values, nulls).map(|a| Arc::new(a) as ArrayRef)
+        };
+        built.unwrap_or_else(|e| {
+            // Every writer here gives UTF-8 (Utf8) and monotonic offsets.
+            debug_assert!(false, "text column: {e}");
+            empty()
+        })
     }
 }
 
@@ -200,13 +224,13 @@ impl ArrayBuilder for TextBuilder {
         let offsets = std::mem::replace(&mut self.offsets, vec![0]);
         let values = std::mem::take(&mut self.values);
         let nulls = self.nulls.finish();
-        Self::build(offsets, values, nulls)
+        Self::build(self.binary, offsets, values, nulls)
     }
 
     fn finish_cloned(&self) -> ArrayRef {
         let mut values = self.values.clone();
         values.truncate(self.pending_start());
-        Self::build(self.offsets.clone(), values, self.nulls.finish_cloned())
+        Self::build(self.binary, self.offsets.clone(), values, self.nulls.finish_cloned())
     }
 
     fn as_any(&self) -> &dyn Any {
@@ -427,6 +451,17 @@ mod tests {
         assert_eq!(b.len(), 0);
         b.append_value("again");
         assert_eq!(b.finish().len(), 1);
+    }
+
+    #[test]
+    fn binary_columns_take_any_octets() {
+        let mut b = TextBuilder::binary_with_capacity(2, 8);
+        b.append_short(&[0xff, 0x00, 0x80, 0, 0, 0, 0, 0], 3);
+        b.append_bytes(&[0xc3]);
+        b.append_null();
+        let a = b.finish();
+        let a = a.as_any().downcast_ref::<BinaryArray>().unwrap();
+        assert_eq!(a.iter().collect::<Vec<_>>(), [Some(&[0xff, 0x00, 0x80][..]), Some(&[0xc3][..]), None]);
     }
 
     #[test]

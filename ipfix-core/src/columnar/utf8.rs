@@ -306,6 +306,40 @@ const fn hex_pairs() -> [[u8; 2]; 256] {
 
 static HEX_PAIRS: [[u8; 2]; 256] = hex_pairs();
 
+/// For every mask of zero groups (bit i: group i is zero), the start and
+/// length of the run RFC 5952 §4.2 shortens to `::`: the longest of two or
+/// more, the first if tied; (8, 0) when there is none.
+const fn zero_runs() -> [(u8, u8); 256] {
+    let mut t = [(8u8, 0u8); 256];
+    let mut mask = 0usize;
+    while mask < 256 {
+        let (mut best, mut best_len, mut run, mut run_len, mut i) = (8u8, 0u8, 0u8, 0u8, 0u8);
+        while i < 8 {
+            if mask & (1 << i) != 0 {
+                if run_len == 0 {
+                    run = i;
+                }
+                run_len += 1;
+                if run_len > best_len {
+                    best = run;
+                    best_len = run_len;
+                }
+            } else {
+                run_len = 0;
+            }
+            i += 1;
+        }
+        #[allow(clippy::indexing_slicing, reason = "const fn; mask < 256")]
+        {
+            t[mask] = if best_len >= 2 { (best, best_len) } else { (8, 0) };
+        }
+        mask += 1;
+    }
+    t
+}
+
+static ZERO_RUNS: [(u8, u8); 256] = zero_runs();
+
 /// Writes an IPv6 address in the RFC 5952 text form into `out`; returns the
 /// length. Lower-case hex without leading zeros (§4.1, §4.3), the longest
 /// run of two or more zero groups as `::`, the first of equal runs (§4.2);
@@ -338,26 +372,13 @@ pub(crate) fn ipv6_text(a: &[u8; 16], out: &mut [u8; 48]) -> usize {
         }
         return 7 + len;
     }
-    // §4.2.3: the longest run of zero groups, the first if tied; §4.2.2: not a single one.
-    let (mut best, mut best_len, mut run, mut run_len) = (8usize, 0usize, 0usize, 0usize);
+    // §4.2.3: the longest run of zero groups, the first if tied; §4.2.2: not
+    // a single one. Looked up by the mask of zero groups.
+    let mut zeros = 0u8;
     for (i, s) in seg.iter().enumerate() {
-        if *s == 0 {
-            if run_len == 0 {
-                run = i;
-            }
-            run_len += 1;
-            if run_len > best_len {
-                best = run;
-                best_len = run_len;
-            }
-        } else {
-            run_len = 0;
-        }
+        zeros |= u8::from(*s == 0) << i;
     }
-    if best_len < 2 {
-        best = 8;
-        best_len = 0;
-    }
+    let (best, best_len) = ZERO_RUNS.get(usize::from(zeros)).map_or((8, 0), |(b, l)| (usize::from(*b), usize::from(*l)));
     let mut i = 0usize;
     while i < 8 {
         if i == best {

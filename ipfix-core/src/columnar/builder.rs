@@ -13,7 +13,7 @@ use arrow::array::{
 };
 use arrow::datatypes::{DataType as ArrowType, Field, TimeUnit};
 
-use super::derive::{be_uint, forwarding_texts, group, DerivedPlan, DerivedRow, SetContext};
+use super::derive::{absolute_ns, be_uint, forwarding_texts, group, DerivedPlan, DerivedRow, SetContext, TimeSource};
 use super::enrich::{Enrichment, IdMap};
 use super::schema::{
     column_name, element_type, name_value_fields, record_struct_fields, write_field_name, ColumnRole, TableKind,
@@ -696,6 +696,8 @@ pub struct TableBuilder {
     spans: Vec<Option<(usize, usize)>>,
     labels: Vec<u32>,
     text: String,
+    /// The exporter whose address `text` holds.
+    text_of: Option<std::net::IpAddr>,
     /// Appends every set record by record (tests compare the two paths).
     pub(crate) row_path: bool,
 }
@@ -742,6 +744,7 @@ impl TableBuilder {
             spans: Vec::new(),
             labels: Vec::new(),
             text: String::new(),
+            text_of: None,
             row_path: false,
         }
     }
@@ -880,9 +883,13 @@ impl TableBuilder {
         }
 
         // Provenance and absent columns, in bulk.
-        self.text.clear();
-        if let Some(ip) = exporter {
-            let _ = write!(self.text, "{ip}");
+        if self.text_of != exporter {
+            // Sets come in runs from one exporter: format its address once.
+            self.text.clear();
+            if let Some(ip) = exporter {
+                let _ = write!(self.text, "{ip}");
+            }
+            self.text_of = exporter;
         }
         let f = self.fixed;
         if let Some(Column::Scalar(Scalar::Utf8(b))) = self.columns.get_mut(f.exporter) {
@@ -981,6 +988,38 @@ impl TableBuilder {
                 }
                 groups &= !group::FWD;
             }
+        }
+        if groups & group::MPLS != 0 {
+            if let Some(Column::List(l)) = self.columns.get_mut(base + 2) {
+                for data in records.clone() {
+                    let raw = |i: usize| layout.get(i).and_then(|(s, e)| data.get(*s..*e));
+                    if map.derived.labels(&raw, &mut self.labels) {
+                        if let Scalar::U32(items) = l.values() {
+                            items.append_slice(&self.labels);
+                        }
+                        l.append(true);
+                    } else {
+                        l.append_null();
+                    }
+                }
+                groups &= !group::MPLS;
+            }
+        }
+        for (g, offset, source) in [(group::START, 3, map.derived.start), (group::END, 4, map.derived.end)] {
+            // Absolute times column by column; the relative ones per record.
+            let (true, Some(TimeSource::Absolute(i, decode))) = (groups & g != 0, source) else { continue };
+            let (Some((s, e)), Some(Column::Scalar(Scalar::TsNs(b)))) = (layout.get(i), self.columns.get_mut(base + offset))
+            else {
+                continue;
+            };
+            for data in records.clone() {
+                let ns = data.get(*s..*e).and_then(|raw| absolute_ns(decode, raw));
+                if ns.is_none() {
+                    self.stats.values_null_out_of_range += 1;
+                }
+                b.append_option(ns);
+            }
+            groups &= !g;
         }
         if groups != 0 {
             for data in records {

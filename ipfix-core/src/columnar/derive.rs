@@ -391,32 +391,8 @@ impl DerivedPlan {
         }
 
         labels.clear();
-        if groups & group::MPLS == 0 {
-            // Constant for the set.
-        } else if !self.mpls_sections.is_empty() {
-            row.labels = true;
-            for i in &self.mpls_sections {
-                // 3 octets: label (20 bits), TC (3), S (1); IANA IE 70-79.
-                let Some(b) = raw(*i) else { break };
-                if b.iter().all(|x| *x == 0) {
-                    break;
-                }
-                let Some(entry) = LabelStackEntry::from_section(b) else { break };
-                labels.push(entry.label);
-                if entry.bottom_of_stack {
-                    break;
-                }
-            }
-        } else if let Some(b) = self.mpls_raw.and_then(&raw) {
-            // Whole 4-octet entries from the head of the stack (IANA IE 316).
-            row.labels = true;
-            for chunk in b.chunks_exact(4) {
-                let Some(entry) = LabelStackEntry::from_section(chunk) else { break };
-                labels.push(entry.label);
-                if entry.bottom_of_stack {
-                    break;
-                }
-            }
+        if groups & group::MPLS != 0 {
+            row.labels = self.labels(&raw, labels);
         }
 
         let init_ms = || match self.init_in_record.and_then(&raw) {
@@ -445,8 +421,12 @@ impl DerivedPlan {
             }
             ns
         };
-        row.start_ns = time(self.start, stats);
-        row.end_ns = time(self.end, stats);
+        if groups & group::START != 0 {
+            row.start_ns = time(self.start, stats);
+        }
+        if groups & group::END != 0 {
+            row.end_ns = time(self.end, stats);
+        }
 
         if groups & group::RATE != 0 {
             row.rate = self.rate(&raw, ctx, stats);
@@ -469,6 +449,40 @@ impl DerivedPlan {
 
         row.srh = uint(self.srh).and_then(|v| u16::try_from(v).ok()).and_then(ie::srv6_endpoint_behavior_name);
         row
+    }
+
+    /// The record's MPLS label values, top first, into `labels` (cleared
+    /// first; see [`DerivedColumn::MplsLabelStack`]). False when the plan
+    /// carries no label stack element, so the column is null.
+    pub(crate) fn labels<'a>(&self, raw: &impl Fn(usize) -> Option<&'a [u8]>, labels: &mut Vec<u32>) -> bool {
+        labels.clear();
+        if !self.mpls_sections.is_empty() {
+            for i in &self.mpls_sections {
+                // 3 octets: label (20 bits), TC (3), S (1); IANA IE 70-79.
+                let Some(b) = raw(*i) else { break };
+                if b.iter().all(|x| *x == 0) {
+                    break;
+                }
+                let Some(entry) = LabelStackEntry::from_section(b) else { break };
+                labels.push(entry.label);
+                if entry.bottom_of_stack {
+                    break;
+                }
+            }
+            true
+        } else if let Some(b) = self.mpls_raw.and_then(raw) {
+            // Whole 4-octet entries from the head of the stack (IANA IE 316).
+            for chunk in b.chunks_exact(4) {
+                let Some(entry) = LabelStackEntry::from_section(chunk) else { break };
+                labels.push(entry.label);
+                if entry.bottom_of_stack {
+                    break;
+                }
+            }
+            true
+        } else {
+            false
+        }
     }
 
     fn rate<'a>(&self, raw: &impl Fn(usize) -> Option<&'a [u8]>, ctx: &SetContext<'_>, stats: &mut ColumnarStats) -> Option<u32> {

@@ -1022,6 +1022,7 @@ mod prop {
             .collect();
         // forwardingStatus, MPLS, times, sampling, names: derived inputs.
         f.extend([(89, 2), (70, 3), (71, 3), (316, VARIABLE_LENGTH), (158, 4), (22, 4), (34, 4), (311, 4), (10, 4), (502, 2)]);
+        f.extend([(156, 8), (153, 8)]); // absolute start and end times
         f.extend([(8, 3), (152, 5)]); // lengths their types do not allow
         f
     }

@@ -7,6 +7,7 @@
 //! no clock and opens no socket: the caller passes bytes and the receive time.
 
 use std::borrow::Cow;
+use std::collections::hash_map::Entry;
 use std::collections::{BTreeMap, HashMap, VecDeque};
 use std::sync::Arc;
 use std::time::Duration;
@@ -498,35 +499,41 @@ impl Decoder {
             }
         };
         let domain = header.observation_domain_id;
-        // One lookup answers both: is the session new, is the domain new.
-        let known = self.sessions.get(session).map(|s| s.domains.contains_key(&domain.0));
-        let (new_session, new_domain) = (known.is_none(), known != Some(true));
-        if new_session && self.sessions.len() >= self.config.max_sessions {
-            self.stats.messages_session_limit += 1;
-            self.stats.skip(SkipReason::SessionLimit, msg.len());
-            let ev = Event::SetSkipped { domain, set_id: 0, offset: 0, octets: msg.len(), reason: SkipReason::SessionLimit };
-            return Ok(Decoded { header, events: vec![ev].into_iter() });
-        }
         let now = received.unwrap_or(Duration::from_secs(u64::from(header.export_time)));
         let body = msg.get(HEADER_LEN..).unwrap_or_default();
-        let pass = {
-            let state = self.sessions.entry(*session).or_default();
-            let template_count = state.template_count;
-            let dstate = state.domains.entry(domain.0).or_default();
-            run_pass(&self.config, session, &header, received, now, body, dstate, template_count, self.pending_bytes)
+        // The session and the domain are looked up once for the whole
+        // message: the fields are borrowed apart so the state can be read by
+        // the pass and then changed by the commit.
+        let Self { config, sessions, pending_bytes, stats } = self;
+        let session_count = sessions.len();
+        let (state, new_session) = match sessions.entry(*session) {
+            Entry::Occupied(o) => (o.into_mut(), false),
+            Entry::Vacant(_) if session_count >= config.max_sessions => {
+                stats.messages_session_limit += 1;
+                stats.skip(SkipReason::SessionLimit, msg.len());
+                let ev = Event::SetSkipped { domain, set_id: 0, offset: 0, octets: msg.len(), reason: SkipReason::SessionLimit };
+                return Ok(Decoded { header, events: vec![ev].into_iter() });
+            }
+            Entry::Vacant(v) => (v.insert(SessionState::default()), true),
         };
-        match pass {
-            Ok(pass) => Ok(self.commit(session, header, now, pass)),
+        let template_count = state.template_count;
+        let (dstate, new_domain) = match state.domains.entry(domain.0) {
+            Entry::Occupied(o) => (o.into_mut(), false),
+            Entry::Vacant(v) => (v.insert(DomainState::default()), true),
+        };
+        match run_pass(config, session, &header, received, now, body, dstate, template_count, *pending_bytes) {
+            Ok(pass) => {
+                state.template_count = state.template_count.saturating_add_signed(pass.template_delta);
+                Ok(commit(config, stats, pending_bytes, dstate, header, now, pass))
+            }
             Err(problem) => {
                 // The message is discarded whole (RFC 7011 §9.1): it leaves no
                 // empty session or domain behind either, so malformed input
                 // cannot fill the session table (Config::max_sessions).
                 if new_session {
-                    self.sessions.remove(session);
+                    sessions.remove(session);
                 } else if new_domain {
-                    if let Some(state) = self.sessions.get_mut(session) {
-                        state.domains.remove(&domain.0);
-                    }
+                    state.domains.remove(&domain.0);
                 }
                 Err(self.malformed(*session, Some(domain), problem))
             }
@@ -539,83 +546,6 @@ impl Decoder {
         MessageError { session, domain, problem }
     }
 
-    fn commit<'a>(&mut self, session: &TransportSession, header: MessageHeader, now: Duration, mut pass: Pass<'a>) -> Decoded<'a> {
-        let domain = header.observation_domain_id;
-        let Some(state) = self.sessions.get_mut(session) else {
-            return Decoded { header, events: Vec::new().into_iter() };
-        };
-        state.template_count = state.template_count.saturating_add_signed(pass.template_delta);
-        let Some(dstate) = state.domains.get_mut(&domain.0) else {
-            return Decoded { header, events: Vec::new().into_iter() };
-        };
-        dstate.templates = pass.table;
-        for id in pass.removed {
-            dstate.refreshed.remove(&id);
-        }
-        for id in pass.refreshed {
-            dstate.refreshed.insert(id, now);
-        }
-        // Replayed pending sets leave the buffer (indices ascending).
-        for idx in pass.replayed_pending.iter().rev() {
-            if let Some(p) = dstate.pending.remove(*idx) {
-                self.pending_bytes = self.pending_bytes.saturating_sub(p.data.len());
-            }
-        }
-        for p in pass.new_pending {
-            self.pending_bytes += p.data.len();
-            dstate.pending.push_back(p);
-        }
-        // Drop buffered sets that waited too long for their template.
-        let max_age = self.config.max_pending_age.as_secs();
-        while let Some(front) = dstate.pending.front() {
-            if u64::from(header.export_time.saturating_sub(front.header.export_time)) <= max_age {
-                break;
-            }
-            if let Some(p) = dstate.pending.pop_front() {
-                self.pending_bytes = self.pending_bytes.saturating_sub(p.data.len());
-                self.stats.skip(SkipReason::TemplateNeverArrived, p.data.len());
-                dstate.stats.sets_skipped += 1;
-            }
-        }
-        // Sequence accounting (RFC 7011 §3.1 with Errata EID 4396).
-        let seq_events = dstate.stats.sequence.observe(header.sequence_number, pass.records, pass.unresolved == 0);
-        let ds = &mut dstate.stats;
-        ds.messages += 1;
-        ds.records_decoded += pass.dstats.records_decoded;
-        for (t, n) in pass.dstats.records_by_template {
-            *ds.records_by_template.entry(t).or_default() += n;
-        }
-        ds.template_redefinitions += pass.dstats.template_redefinitions;
-        ds.template_withdrawals += pass.dstats.template_withdrawals;
-        ds.sets_skipped += pass.dstats.sets_skipped;
-        ds.first_export_time = Some(ds.first_export_time.map_or(header.export_time, |t| t.min(header.export_time)));
-        ds.last_export_time = Some(ds.last_export_time.map_or(header.export_time, |t| t.max(header.export_time)));
-        match seq_events {
-            Some(SequenceEvent::Gap { expected, missing }) => {
-                self.stats.sequence_gap_records += u64::from(missing);
-                pass.events.push(Event::SequenceGap { domain, expected, received: header.sequence_number, missing });
-            }
-            Some(SequenceEvent::Late { expected, filled }) => {
-                self.stats.sequence_late_records += pass.records;
-                self.stats.sequence_gap_records = self.stats.sequence_gap_records.saturating_sub(filled);
-                pass.events.push(Event::SequenceLate { domain, expected, received: header.sequence_number });
-            }
-            Some(SequenceEvent::Uncounted { records }) => self.stats.records_skipped_by_sequence += u64::from(records),
-            Some(SequenceEvent::Reset) => self.stats.sequence_resets += 1,
-            None => {}
-        }
-        if pass.replayed_earlier > 0 {
-            // Records of earlier messages decoded now were counted as
-            // uncounted when the sequence numbers passed over them: they were
-            // late, not skipped.
-            let r = pass.replayed_earlier;
-            self.stats.records_skipped_by_sequence = self.stats.records_skipped_by_sequence.saturating_sub(r);
-            ds.sequence.uncounted_records = ds.sequence.uncounted_records.saturating_sub(r);
-            ds.sequence.received_records += r;
-        }
-        merge_stats(&mut self.stats, pass.stats);
-        Decoded { header, events: pass.events.into_iter() }
-    }
 
     /// Ends a Transport Session (TCP/SCTP close, end of a file): its
     /// templates are withdrawn (RFC 7011 §8) and sets still waiting for a
@@ -648,6 +578,87 @@ impl Decoder {
         self.pending_bytes = 0;
         n
     }
+}
+
+/// Applies an accepted message's pass to its domain's state and the
+/// decoder's counters.
+fn commit<'a>(
+    config: &Config,
+    stats: &mut Stats,
+    pending_bytes: &mut usize,
+    dstate: &mut DomainState,
+    header: MessageHeader,
+    now: Duration,
+    mut pass: Pass<'a>,
+) -> Decoded<'a> {
+    let domain = header.observation_domain_id;
+    dstate.templates = pass.table;
+    for id in pass.removed {
+        dstate.refreshed.remove(&id);
+    }
+    for id in pass.refreshed {
+        dstate.refreshed.insert(id, now);
+    }
+    // Replayed pending sets leave the buffer (indices ascending).
+    for idx in pass.replayed_pending.iter().rev() {
+        if let Some(p) = dstate.pending.remove(*idx) {
+            *pending_bytes = pending_bytes.saturating_sub(p.data.len());
+        }
+    }
+    for p in pass.new_pending {
+        *pending_bytes += p.data.len();
+        dstate.pending.push_back(p);
+    }
+    // Drop buffered sets that waited too long for their template.
+    let max_age = config.max_pending_age.as_secs();
+    while let Some(front) = dstate.pending.front() {
+        if u64::from(header.export_time.saturating_sub(front.header.export_time)) <= max_age {
+            break;
+        }
+        if let Some(p) = dstate.pending.pop_front() {
+            *pending_bytes = pending_bytes.saturating_sub(p.data.len());
+            stats.skip(SkipReason::TemplateNeverArrived, p.data.len());
+            dstate.stats.sets_skipped += 1;
+        }
+    }
+    // Sequence accounting (RFC 7011 §3.1 with Errata EID 4396).
+    let seq_events = dstate.stats.sequence.observe(header.sequence_number, pass.records, pass.unresolved == 0);
+    let ds = &mut dstate.stats;
+    ds.messages += 1;
+    ds.records_decoded += pass.dstats.records_decoded;
+    for (t, n) in pass.dstats.records_by_template {
+        *ds.records_by_template.entry(t).or_default() += n;
+    }
+    ds.template_redefinitions += pass.dstats.template_redefinitions;
+    ds.template_withdrawals += pass.dstats.template_withdrawals;
+    ds.sets_skipped += pass.dstats.sets_skipped;
+    ds.first_export_time = Some(ds.first_export_time.map_or(header.export_time, |t| t.min(header.export_time)));
+    ds.last_export_time = Some(ds.last_export_time.map_or(header.export_time, |t| t.max(header.export_time)));
+    match seq_events {
+        Some(SequenceEvent::Gap { expected, missing }) => {
+            stats.sequence_gap_records += u64::from(missing);
+            pass.events.push(Event::SequenceGap { domain, expected, received: header.sequence_number, missing });
+        }
+        Some(SequenceEvent::Late { expected, filled }) => {
+            stats.sequence_late_records += pass.records;
+            stats.sequence_gap_records = stats.sequence_gap_records.saturating_sub(filled);
+            pass.events.push(Event::SequenceLate { domain, expected, received: header.sequence_number });
+        }
+        Some(SequenceEvent::Uncounted { records }) => stats.records_skipped_by_sequence += u64::from(records),
+        Some(SequenceEvent::Reset) => stats.sequence_resets += 1,
+        None => {}
+    }
+    if pass.replayed_earlier > 0 {
+        // Records of earlier messages decoded now were counted as
+        // uncounted when the sequence numbers passed over them: they were
+        // late, not skipped.
+        let r = pass.replayed_earlier;
+        stats.records_skipped_by_sequence = stats.records_skipped_by_sequence.saturating_sub(r);
+        ds.sequence.uncounted_records = ds.sequence.uncounted_records.saturating_sub(r);
+        ds.sequence.received_records += r;
+    }
+    merge_stats(stats, pass.stats);
+    Decoded { header, events: pass.events.into_iter() }
 }
 
 fn merge_stats(into: &mut Stats, from: Stats) {

@@ -47,17 +47,24 @@ impl TextBuilder {
 
     /// Closes the value that started at `start` in the values buffer
     /// (octets written with [`fmt::Write`] belong to it too).
-    #[inline]
+    #[inline(always)]
     fn close(&mut self, start: usize) {
-        if let Ok(end) = i32::try_from(self.values.len()) {
-            self.offsets.push(end);
-            self.nulls.append_non_null();
-        } else {
-            debug_assert!(start >= self.pending_start());
-            self.values.truncate(self.pending_start());
-            self.push_null();
-            self.overflowed += 1;
+        match i32::try_from(self.values.len()) {
+            Ok(end) => {
+                self.offsets.push(end);
+                self.nulls.append_non_null();
+            }
+            Err(_) => self.overflow(start),
         }
+    }
+
+    /// The value would carry the batch's text past 2 GiB: null instead.
+    #[cold]
+    fn overflow(&mut self, start: usize) {
+        debug_assert!(start >= self.pending_start());
+        self.values.truncate(self.pending_start());
+        self.push_null();
+        self.overflowed += 1;
     }
 
     /// Where the value being written started.

@@ -184,6 +184,24 @@ impl Inputs {
     }
 }
 
+impl Inputs {
+    /// Whether all inputs together have fewer than `limit` rows, by their
+    /// footers; `false` when a footer cannot be read.
+    pub(crate) fn rows_below(&self, limit: u64) -> bool {
+        let mut rows: u64 = 0;
+        for path in self.groups.iter().flat_map(|g| g.paths.iter()) {
+            let Ok(mut file) = fs::File::open(path) else {
+                return false;
+            };
+            let Ok(metadata) = polars_parquet::parquet::read::read_metadata(&mut file) else {
+                return false;
+            };
+            rows = rows.saturating_add(u64::try_from(metadata.num_rows).unwrap_or(u64::MAX));
+        }
+        rows < limit
+    }
+}
+
 /// Running minimum and maximum of record times, in nanoseconds.
 #[derive(Default)]
 struct TimeBounds {

@@ -446,7 +446,6 @@ impl DropQuery {
         let present = |name: &str| inputs.dtype(name).is_some();
         let record_time = time_bounds.is_none().then_some(record_time);
         let with_time = record_time.is_some();
-        let lf = lf.with_columns(record_measures(record_time, &present));
         let mut derived: Vec<Expr> = Vec::new();
         let mut group1: Vec<String> = Vec::new();
         if let Some(every) = every_ns {
@@ -473,12 +472,20 @@ impl DropQuery {
             .collect();
 
         // Stage 1: one row per group and reason (and bucket).
-        let mut aggs = stage1_aggs(with_moments, with_time);
-        aggs.extend(companion_aggs(&companions));
-        let stage1 = lf
-            .with_columns(derived)
-            .group_by(group1.iter().map(|s| col(s.as_str())).collect::<Vec<_>>())
-            .agg(aggs);
+        // Drops' two-level stage 1 orders companion names by row number,
+        // which must fit polars' index type.
+        let two_level = !with_moments
+            && (companions.is_empty() || inputs.rows_below(u64::from(IdxSize::MAX)));
+        let stage1 = if !two_level {
+            let mut aggs = stage1_aggs(with_moments, with_time);
+            aggs.extend(companion_aggs(&companions));
+            lf.with_columns(record_measures(record_time, &present))
+                .with_columns(derived)
+                .group_by(group1.iter().map(|s| col(s.as_str())).collect::<Vec<_>>())
+                .agg(aggs)
+        } else {
+            drops_stage1(lf, record_time, &present, derived, &group1, &companions)
+        };
         Ok(Prepared {
             stage1,
             plans,
@@ -668,6 +675,213 @@ fn record_measures(record_time: Option<Expr>, present: &dyn Fn(&str) -> bool) ->
     exprs
 }
 
+// Working columns of the two-level drops stage 1.
+const G_DROP: &str = "_fs_g_drop";
+const G_RATE: &str = "_fs_g_rate";
+const G_T: &str = "_fs_g_t";
+const G_TD: &str = "_fs_g_td";
+const G_D: &str = "_fs_g_d";
+const G_TO: &str = "_fs_g_to";
+const G_TDO: &str = "_fs_g_tdo";
+const G_DO: &str = "_fs_g_do";
+const G_ROW: &str = "_fs_g_row";
+/// Prefix of the first row number with a non-null companion.
+const G_AT: &str = "_fs_g_at_";
+
+/// Drops' stage 1, the same rows as [`record_measures`] summed by
+/// [`stage1_aggs`] (without moments), in two levels.
+///
+/// Per record, the measures depend on the sampling rate and on whether
+/// the outcome is `dropped` only through the factor N and the choice of
+/// count. So records are first grouped by `group1` plus the rate and the
+/// outcome flag, summing the raw counts (a sum skips nulls, as
+/// `coalesce(x, 0)` does), and the few resulting rows get N and the
+/// choice applied before they are summed into `group1` groups:
+/// `Σ N·k = N·Σ k` where N is the same for every record. No
+/// per-record arithmetic is left but the sums. The variance term is
+/// `N(N−1)·Σ k` from the exact integer sum rather than a float sum of
+/// `N(N−1)·k` record by record: the same while the figures stay below
+/// 2⁵³, and at most a rounding apart beyond.
+///
+/// A companion (an interface name beside its id) is the first non-null
+/// value in input order; level 1 keeps, beside each group's first, the row
+/// number where it was seen, and level 2 takes the earliest. Row numbers
+/// need fewer rows than polars' index type holds.
+fn drops_stage1(
+    lf: LazyFrame,
+    record_time: Option<Expr>,
+    present: &dyn Fn(&str) -> bool,
+    derived: Vec<Expr>,
+    group1: &[String],
+    companions: &[String],
+) -> LazyFrame {
+    use contract::*;
+    let u64c = |name: &str| present(name).then(|| col(name).cast(DataType::UInt64));
+    let with_time = record_time.is_some();
+    let mut lf = lf;
+    let split = present(FORWARDING_OUTCOME) || present(SAMPLING_RATE);
+    let ordered = split && !companions.is_empty();
+    if ordered {
+        lf = lf.with_row_index(G_ROW, None);
+    }
+    if let Some(record_time) = record_time {
+        lf = lf.with_column(record_time.alias(W_TIME));
+    }
+    let mut lf = lf.with_columns(derived);
+    let mut keys: Vec<Expr> = group1.iter().map(|s| col(s.as_str())).collect();
+    let mut flags: Vec<Expr> = Vec::new();
+    let has_outcome = present(FORWARDING_OUTCOME);
+    if has_outcome {
+        flags.push(
+            col(FORWARDING_OUTCOME)
+                .eq(lit(OUTCOME_DROPPED))
+                .fill_null(lit(false))
+                .alias(G_DROP),
+        );
+        keys.push(col(G_DROP));
+    }
+    let has_rate = present(SAMPLING_RATE);
+    if has_rate {
+        flags.push(col(SAMPLING_RATE).alias(G_RATE));
+        keys.push(col(G_RATE));
+    }
+    if !flags.is_empty() {
+        lf = lf.with_columns(flags);
+    }
+
+    // Level 1: raw sums per group, rate and outcome flag.
+    let mut aggs: Vec<Expr> = vec![len().cast(DataType::UInt64).alias(FLOW_RECORDS)];
+    // Which sums exist: (Σt, Σcoalesce(t, d), Σd) for packets and octets.
+    let mut sums = |delta: &str, total: &str, dropped: &str, names: [&'static str; 3]| {
+        let t = match (u64c(delta), u64c(total)) {
+            (Some(a), Some(b)) => Some(coalesce(&[a, b])),
+            (a, b) => a.or(b),
+        };
+        let d = u64c(dropped);
+        let td = match (&t, &d) {
+            (Some(t), Some(d)) => Some(coalesce(&[t.clone(), d.clone()])),
+            _ => None,
+        };
+        let [nt, ntd, nd] = names;
+        let mut have = [false; 3];
+        for (i, (expr, name)) in [(t, nt), (td, ntd), (d, nd)].into_iter().enumerate() {
+            if let Some(expr) = expr {
+                aggs.push(expr.sum().alias(name));
+                if let Some(h) = have.get_mut(i) {
+                    *h = true;
+                }
+            }
+        }
+        have
+    };
+    let have_p = sums(
+        PACKET_DELTA_COUNT,
+        PACKET_TOTAL_COUNT,
+        DROPPED_PACKET_DELTA_COUNT,
+        [G_T, G_TD, G_D],
+    );
+    let have_o = sums(
+        OCTET_DELTA_COUNT,
+        OCTET_TOTAL_COUNT,
+        DROPPED_OCTET_DELTA_COUNT,
+        [G_TO, G_TDO, G_DO],
+    );
+    if with_time {
+        aggs.push(col(W_TIME).min().alias(A_FIRST));
+        aggs.push(col(W_TIME).max().alias(A_LAST));
+    }
+    aggs.extend(companion_aggs(companions));
+    if ordered {
+        for (i, c) in companions.iter().enumerate() {
+            aggs.push(
+                when(col(c.as_str()).is_not_null())
+                    .then(col(G_ROW))
+                    .otherwise(lit(NULL))
+                    .min()
+                    .alias(format!("{G_AT}{i}")),
+            );
+        }
+    }
+    let level1 = lf.group_by(keys).agg(aggs);
+
+    // Per level-1 row: N, the counts k and t, and the scaled measures.
+    let u64_0 = || lit(0u64);
+    let (known, n) = if has_rate {
+        let rate = col(G_RATE).cast(DataType::UInt64);
+        let known = rate.clone().gt(u64_0()).fill_null(lit(false));
+        (known.clone(), when(known).then(rate).otherwise(lit(1u64)))
+    } else {
+        (lit(false), lit(1u64))
+    };
+    let counts = |have: [bool; 3], names: [&'static str; 3]| {
+        let sum = |i: usize| match (have.get(i), names.get(i)) {
+            (Some(true), Some(name)) => col(*name),
+            _ => u64_0(),
+        };
+        let [t_ok, td_ok, _] = have;
+        // Σ coalesce(t, d, 0) when dropped: whichever of t, d exists.
+        let whole = if td_ok {
+            sum(1)
+        } else if t_ok {
+            sum(0)
+        } else {
+            sum(2)
+        };
+        let k = if has_outcome {
+            when(col(G_DROP)).then(whole).otherwise(sum(2))
+        } else {
+            sum(2)
+        };
+        (sum(0), k)
+    };
+    let (tp, kp) = counts(have_p, [G_T, G_TD, G_D]);
+    let (to, ko) = counts(have_o, [G_TO, G_TDO, G_DO]);
+    let nf = n.clone().cast(DataType::Float64);
+    let measures = vec![
+        n.clone().alias(W_N),
+        kp.clone().alias(W_K),
+        (kp.clone() * n.clone()).alias(W_DP),
+        (ko * n.clone()).alias(W_DO),
+        (tp * n.clone()).alias(W_TP),
+        (to * n).alias(W_TO),
+        (nf.clone() * (nf - lit(1.0)) * kp.cast(DataType::Float64)).alias(W_VAR),
+        when(known)
+            .then(col(FLOW_RECORDS))
+            .otherwise(u64_0())
+            .alias(W_KNOWN),
+    ];
+
+    // Level 2: the level-1 rows summed into `group1` groups.
+    let mut aggs = vec![
+        col(W_DP).sum().alias(DROPPED_PACKETS),
+        col(W_DO).sum().alias(DROPPED_OCTETS),
+        col(W_TP).sum().alias(TOTAL_PACKETS),
+        col(W_TO).sum().alias(TOTAL_OCTETS),
+        col(FLOW_RECORDS).sum().alias(FLOW_RECORDS),
+        col(W_K).sum().alias(A_SAMPLED),
+        col(W_VAR).sum().alias(W_VAR),
+        col(W_KNOWN).sum().alias(W_KNOWN),
+        col(W_N).max().alias(A_MAX_RATE),
+    ];
+    if with_time {
+        aggs.push(col(A_FIRST).min().alias(A_FIRST));
+        aggs.push(col(A_LAST).max().alias(A_LAST));
+    }
+    if ordered {
+        aggs.extend(companion_aggs_in_order(companions));
+        for i in 0..companions.len() {
+            let at = format!("{G_AT}{i}");
+            aggs.push(col(at.as_str()).min().alias(at.as_str()));
+        }
+    } else {
+        aggs.extend(companion_aggs(companions));
+    }
+    level1
+        .with_columns(measures)
+        .group_by(group1.iter().map(|s| col(s.as_str())).collect::<Vec<_>>())
+        .agg(aggs)
+}
+
 /// Stage-1 aggregations over records; `with_moments` adds the sampled
 /// total packets, the records that dropped and the second moments used by
 /// `compare`; `with_time` the earliest and latest record time.
@@ -710,6 +924,22 @@ fn companion_aggs(companions: &[String]) -> Vec<Expr> {
         .collect()
 }
 
+/// The companion seen first in input order, by the row numbers kept in
+/// `_fs_g_at_{i}` (null only where every record had none).
+fn companion_aggs_in_order(companions: &[String]) -> Vec<Expr> {
+    let order = SortMultipleOptions::default().with_nulls_last(true);
+    companions
+        .iter()
+        .enumerate()
+        .map(|(i, c)| {
+            col(c.as_str())
+                .sort_by([col(format!("{G_AT}{i}").as_str())], order.clone())
+                .first()
+                .alias(c.as_str())
+        })
+        .collect()
+}
+
 /// Stage 2: merges stage-1 rows into groups by `keys` (one row of totals
 /// when `keys` is empty), then adds ratio and interval columns.
 fn regroup(
@@ -736,7 +966,12 @@ fn regroup(
         aggs.push(col(A_FIRST).min().alias(A_FIRST));
         aggs.push(col(A_LAST).max().alias(A_LAST));
     }
-    aggs.extend(companion_aggs(companions));
+    let in_order = !companions.is_empty() && stage1.schema().contains(&format!("{G_AT}0"));
+    if in_order {
+        aggs.extend(companion_aggs_in_order(companions));
+    } else {
+        aggs.extend(companion_aggs(companions));
+    }
     if with_top_reason {
         // The reason with most dropped packets; ties go to the name first
         // in alphabetical order. Null when the group dropped nothing.

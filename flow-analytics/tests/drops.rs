@@ -641,6 +641,146 @@ fn time_range_from_footers_matches_the_rows() {
     }
 }
 
+/// Per group, straight from the per-record definitions in the crate docs.
+#[derive(Default, Debug, PartialEq)]
+struct Expected {
+    dropped_packets: u64,
+    dropped_octets: u64,
+    total_packets: u64,
+    total_octets: u64,
+    records: u64,
+    var: f64,
+    name: Option<String>,
+}
+
+#[test]
+fn grouped_figures_match_the_per_record_definitions() {
+    // A fixed pseudo-random sequence (64-bit LCG, Knuth's MMIX constants).
+    let mut state: u64 = 0x2545_f491_4f6c_dd1d;
+    let mut next = move |n: u64| {
+        state = state.wrapping_mul(6_364_136_223_846_793_005).wrapping_add(1_442_695_040_888_963_407);
+        (state >> 33) % n
+    };
+    let rows = 600;
+    let mut cols: Vec<Vec<Option<u64>>> = vec![Vec::new(); 6];
+    let (mut outcome, mut reason, mut rate, mut iface, mut name) =
+        (Vec::new(), Vec::new(), Vec::new(), Vec::new(), Vec::new());
+    let outcomes = [Some("dropped"), Some("forwarded"), Some("consumed"), None];
+    let reasons = [Some("acl-deny"), Some("policer"), None];
+    let rates = [None, Some(0u32), Some(1), Some(10), Some(1000)];
+    for _ in 0..rows {
+        for col in cols.iter_mut() {
+            // Null about a third of the time.
+            col.push((next(3) > 0).then(|| next(50)));
+        }
+        outcome.push(outcomes[next(4) as usize]);
+        reason.push(reasons[next(3) as usize]);
+        rate.push(rates[next(5) as usize]);
+        let id = next(3) as u32;
+        iface.push(Some(id));
+        // Names vary per id and are sometimes missing: the first seen counts.
+        name.push((next(4) > 0).then(|| format!("if{id}-{}", next(3))));
+    }
+    let names: [&str; 6] = [
+        "packetDeltaCount",
+        "packetTotalCount",
+        "droppedPacketDeltaCount",
+        "octetDeltaCount",
+        "octetTotalCount",
+        "droppedOctetDeltaCount",
+    ];
+    let mut columns: Vec<Column> = names.iter().zip(&cols).map(|(n, v)| u64s(n, v)).collect();
+    columns.push(strs("forwardingOutcome", &outcome));
+    columns.push(strs("forwardingReason", &reason));
+    columns.push(u32s("samplingRate", &rate));
+    columns.push(u32s("egressInterface", &iface));
+    let name_refs: Vec<Option<&str>> = name.iter().map(|n| n.as_deref()).collect();
+    columns.push(strs("egressInterfaceName", &name_refs));
+    let dir = tempfile::tempdir().unwrap();
+    let file = write(&dir.path().join("model.parquet"), columns);
+
+    let mut expected: std::collections::BTreeMap<(u32, Option<&str>), Expected> = Default::default();
+    let mut by_iface: std::collections::BTreeMap<u32, Option<String>> = Default::default();
+    for i in 0..rows {
+        let c = |j: usize| cols[j][i];
+        let n = match rate[i] {
+            Some(r) if r > 0 => u64::from(r),
+            _ => 1,
+        };
+        let whole = outcome[i] == Some("dropped");
+        let counts = |delta: usize, total: usize, dropped: usize| {
+            let t = c(delta).or(c(total));
+            let k = if whole { t.or(c(dropped)).unwrap_or(0) } else { c(dropped).unwrap_or(0) };
+            (t.unwrap_or(0), k)
+        };
+        let (tp, kp) = counts(0, 1, 2);
+        let (to, ko) = counts(3, 4, 5);
+        let e = expected.entry((iface[i].unwrap(), reason[i])).or_default();
+        e.dropped_packets += n * kp;
+        e.dropped_octets += n * ko;
+        e.total_packets += n * tp;
+        e.total_octets += n * to;
+        e.records += 1;
+        e.var += (n * (n - 1) * kp) as f64;
+        if e.name.is_none() {
+            e.name = name[i].clone();
+        }
+        let first = by_iface.entry(iface[i].unwrap()).or_default();
+        if first.is_none() {
+            *first = name[i].clone();
+        }
+    }
+
+    let table = DropQuery::new([&file])
+        .with_by([Dimension::EgressInterface, Dimension::Reason])
+        .run()
+        .unwrap();
+    let df = table.frame();
+    assert_eq!(df.height(), expected.len());
+    let u = |name: &str, i: usize| df.column(name).unwrap().get(i).unwrap().extract::<u64>().unwrap();
+    for i in 0..df.height() {
+        let id = df.column("egressInterface").unwrap().get(i).unwrap().extract::<u32>().unwrap();
+        let reason = df.column("forwardingReason").unwrap().get(i).unwrap();
+        let reason = reasons.iter().flatten().copied().find(|r| reason == AnyValue::String(r));
+        let want = &expected[&(id, reason)];
+        let name = df.column("egressInterfaceName").unwrap().get(i).unwrap();
+        let got = Expected {
+            dropped_packets: u("droppedPackets", i),
+            dropped_octets: u("droppedOctets", i),
+            total_packets: u("totalPackets", i),
+            total_octets: u("totalOctets", i),
+            records: u("flowRecords", i),
+            // The interval's half-width gives the variance back.
+            var: {
+                let high = df.column("droppedPacketsHigh").unwrap().get(i).unwrap().extract::<f64>().unwrap();
+                let half = high - want.dropped_packets as f64;
+                let var = (half / 1.96).powi(2);
+                if (var - want.var).abs() <= 1e-6 * want.var.max(1.0) { want.var } else { var }
+            },
+            name: match name {
+                AnyValue::String(s) => Some(s.to_string()),
+                _ => None,
+            },
+        };
+        assert_eq!(&got, want, "egressInterface {id}, reason {reason:?}");
+    }
+
+    // Merged over reasons, the name is still the first seen for the id.
+    let table = DropQuery::new([&file])
+        .with_by([Dimension::EgressInterface])
+        .run()
+        .unwrap();
+    let df = table.frame();
+    for i in 0..df.height() {
+        let id = df.column("egressInterface").unwrap().get(i).unwrap().extract::<u32>().unwrap();
+        let name = match df.column("egressInterfaceName").unwrap().get(i).unwrap() {
+            AnyValue::String(s) => Some(s.to_string()),
+            _ => None,
+        };
+        assert_eq!(name, by_iface[&id], "egressInterface {id}");
+    }
+}
+
 #[test]
 fn input_errors() {
     let dir = tempfile::tempdir().unwrap();

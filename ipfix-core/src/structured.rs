@@ -336,6 +336,14 @@ pub(crate) fn validate(decode: Decode, b: &[u8], scope: Scope<'_>) -> Result<(),
                 (0, ListProblem::ShortHeader { needed, available: b.len() })
             })?;
             let header = b.len() - list.elements.len();
+            let element_len = usize::from(list.element.length);
+            let nested = matches!(list.decode, Decode::BasicList | Decode::SubTemplateList | Decode::SubTemplateMultiList);
+            if !list.element.is_variable() && element_len > 0 && !nested {
+                // Fixed-length scalar elements: the list holds whole
+                // elements or the first incomplete one overruns.
+                let whole = list.elements.len() / element_len * element_len;
+                return if whole == list.elements.len() { Ok(()) } else { Err((header + whole, ListProblem::ElementOverrun)) };
+            }
             let mut pos = 0;
             while pos < list.elements.len() {
                 if list.element.length == 0 {

@@ -59,16 +59,16 @@ impl PartialEq for BasicList<'_> {
 
 /// The decoded header of a basicList.
 #[derive(Debug, Clone, Copy)]
-struct BasicListHeader<'a> {
-    element: FieldSpecifier,
-    data_type: DataType,
-    decode: Decode,
-    elements: &'a [u8],
+pub(crate) struct BasicListHeader<'a> {
+    pub(crate) element: FieldSpecifier,
+    pub(crate) data_type: DataType,
+    pub(crate) decode: Decode,
+    pub(crate) elements: &'a [u8],
 }
 
 /// Decodes a basicList header: Semantic (1), E bit + Field ID (2), Element
 /// Length (2), Enterprise Number (4) when E = 1 (RFC 6313 §4.5.1).
-fn basic_list_header(b: &[u8]) -> Option<BasicListHeader<'_>> {
+pub(crate) fn basic_list_header(b: &[u8]) -> Option<BasicListHeader<'_>> {
     let raw_id = be16(b, 1)?;
     let length = be16(b, 3)?;
     let (element, elements) = if raw_id & 0x8000 != 0 {

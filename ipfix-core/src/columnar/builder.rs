@@ -587,6 +587,35 @@ impl Column {
     }
 }
 
+/// Appends a basicList of fixed-length scalar elements straight from its
+/// octets when the item column has the elements' own type (RFC 6313
+/// §4.5.1: the elements are Element Length octets each). False, with
+/// nothing appended, for any other list: the caller takes the general path.
+fn append_scalar_list(l: &mut ListBuilder<Scalar>, raw: &[u8], stats: &mut ColumnarStats) -> bool {
+    let Some(list) = crate::structured::basic_list_header(raw) else { return false };
+    let len = usize::from(list.element.length);
+    if list.element.is_variable() || len == 0 || list.elements.len() % len != 0 {
+        return false;
+    }
+    // Only where the octets path gives what the value path gives.
+    let same = matches!(
+        (l.values_ref(), list.decode),
+        (Scalar::U8(_) | Scalar::U16(_) | Scalar::U32(_) | Scalar::U64(_), Decode::Unsigned)
+            | (Scalar::I8(_) | Scalar::I16(_) | Scalar::I32(_) | Scalar::I64(_), Decode::Signed)
+            | (Scalar::Utf8(_), Decode::Ipv4Address | Decode::Ipv6Address)
+            | (Scalar::Binary(_), Decode::Octets)
+    );
+    if !same {
+        return false;
+    }
+    let items = l.values();
+    for element in list.elements.chunks_exact(len) {
+        items.append_raw(list.decode, element, stats);
+    }
+    l.append(true);
+    true
+}
+
 /// Appends one struct item per record (see
 /// [`record_struct_type`](super::record_struct_type)).
 fn append_records(
@@ -1077,6 +1106,13 @@ impl TableBuilder {
         }
         if mismatch {
             self.stats.values_octets_fallback += 1;
+        }
+        if slot.decode == Decode::BasicList && !self.row_path {
+            if let (Some(Column::List(l)), Some(raw)) = (self.columns.get_mut(slot.column), raw) {
+                if append_scalar_list(l, raw, &mut self.stats) {
+                    return;
+                }
+            }
         }
         let Some(col) = self.columns.get_mut(slot.column) else { return };
         match (col, raw) {

@@ -159,46 +159,51 @@ impl Inputs {
     }
 }
 
-impl Inputs {
+/// What the inputs' footers tell without reading any rows.
+pub(crate) struct FooterFacts {
+    /// Rows in all inputs; `None` when a footer cannot be read.
+    pub rows: Option<u64>,
     /// The earliest and latest record time (`flowEndTime`, else
-    /// `exportTime`) over every row of every input, in nanoseconds since
-    /// 1970, read from the footer statistics alone. `None` when the footers
-    /// cannot tell exactly (statistics missing, a row group where only some
-    /// `flowEndTime` values are null, a time column that is not a Parquet
-    /// timestamp, or a partition column of that name); the caller then
-    /// reads the rows. The inner `None`s: no row has a time.
-    pub(crate) fn record_time_bounds(&self) -> Option<(Option<i64>, Option<i64>)> {
-        let mut bounds = TimeBounds::default();
+    /// `exportTime`) over every row, in nanoseconds since 1970, when the
+    /// statistics tell it exactly; `None` when they cannot (statistics
+    /// missing, a row group where only some `flowEndTime` values are null,
+    /// a time column that is not a Parquet timestamp, or a partition column
+    /// of that name), and the rows must be read. The inner `None`s: no row
+    /// has a time.
+    pub time_bounds: Option<(Option<i64>, Option<i64>)>,
+}
+
+impl Inputs {
+    /// Reads every input's footer once for [`FooterFacts`].
+    pub(crate) fn footer_facts(&self) -> FooterFacts {
+        let mut rows: Option<u64> = Some(0);
+        let mut bounds = Some(TimeBounds::default());
         for group in &self.groups {
             let partitioned = group.partitions.iter().any(|(key, _)| {
                 key == contract::FLOW_END_TIME || key == contract::EXPORT_TIME
             });
             if partitioned {
-                return None;
+                bounds = None;
             }
             for path in &group.paths {
-                file_time_bounds(path, &mut bounds)?;
+                let metadata = fs::File::open(path)
+                    .ok()
+                    .and_then(|mut file| polars_parquet::parquet::read::read_metadata(&mut file).ok());
+                let Some(metadata) = metadata else {
+                    return FooterFacts { rows: None, time_bounds: None };
+                };
+                rows = rows.map(|r| r.saturating_add(u64::try_from(metadata.num_rows).unwrap_or(u64::MAX)));
+                if let Some(b) = bounds.as_mut() {
+                    if file_time_bounds(&metadata, b).is_none() {
+                        bounds = None;
+                    }
+                }
             }
         }
-        Some((bounds.min, bounds.max))
-    }
-}
-
-impl Inputs {
-    /// Whether all inputs together have fewer than `limit` rows, by their
-    /// footers; `false` when a footer cannot be read.
-    pub(crate) fn rows_below(&self, limit: u64) -> bool {
-        let mut rows: u64 = 0;
-        for path in self.groups.iter().flat_map(|g| g.paths.iter()) {
-            let Ok(mut file) = fs::File::open(path) else {
-                return false;
-            };
-            let Ok(metadata) = polars_parquet::parquet::read::read_metadata(&mut file) else {
-                return false;
-            };
-            rows = rows.saturating_add(u64::try_from(metadata.num_rows).unwrap_or(u64::MAX));
+        FooterFacts {
+            rows,
+            time_bounds: bounds.map(|b| (b.min, b.max)),
         }
-        rows < limit
     }
 }
 
@@ -225,10 +230,10 @@ struct ChunkTimes {
 
 /// Adds the record-time range of one file to `bounds`; `None` when its
 /// footer cannot tell exactly.
-fn file_time_bounds(path: &Path, bounds: &mut TimeBounds) -> Option<()> {
-    use polars_parquet::parquet::read::read_metadata;
-    let mut file = fs::File::open(path).ok()?;
-    let metadata = read_metadata(&mut file).ok()?;
+fn file_time_bounds(
+    metadata: &polars_parquet::parquet::metadata::FileMetadata,
+    bounds: &mut TimeBounds,
+) -> Option<()> {
     for row_group in &metadata.row_groups {
         let rows = row_group.num_rows();
         let end = chunk_times(row_group, contract::FLOW_END_TIME, &metadata.footer_buf)?;

@@ -367,10 +367,16 @@ impl DropQuery {
         // range of drops' summary is in the footers' statistics when they
         // tell it exactly; then the time columns are not read at all.
         let unfiltered = filter.is_none() && every_ns.is_none() && from_ns.is_none() && to_ns.is_none();
-        let time_bounds = if unfiltered && !with_moments {
-            inputs.record_time_bounds()
-        } else {
-            None
+        let companions: Vec<String> = plans
+            .iter()
+            .flat_map(|p| p.companions.iter().cloned())
+            .collect();
+        // Footers are read when drops has a use for them: the time range
+        // (above), and the row count for the two-level stage 1 (below).
+        let facts = (!with_moments && (unfiltered || !companions.is_empty())).then(|| inputs.footer_facts());
+        let time_bounds = match &facts {
+            Some(facts) if unfiltered => facts.time_bounds,
+            _ => None,
         };
 
         // Which input columns to read, and as which type.
@@ -466,16 +472,15 @@ impl DropQuery {
         if !reason_is_key {
             group1.push(contract::FORWARDING_REASON.to_string());
         }
-        let companions: Vec<String> = plans
-            .iter()
-            .flat_map(|p| p.companions.iter().cloned())
-            .collect();
 
         // Stage 1: one row per group and reason (and bucket).
         // Drops' two-level stage 1 orders companion names by row number,
         // which must fit polars' index type.
-        let two_level = !with_moments
-            && (companions.is_empty() || inputs.rows_below(u64::from(IdxSize::MAX)));
+        let indexable = facts
+            .as_ref()
+            .and_then(|f| f.rows)
+            .is_some_and(|rows| rows < u64::from(IdxSize::MAX));
+        let two_level = !with_moments && (companions.is_empty() || indexable);
         let stage1 = if !two_level {
             let mut aggs = stage1_aggs(with_moments, with_time);
             aggs.extend(companion_aggs(&companions));

@@ -280,18 +280,8 @@ pub fn run(args: ConvertArgs) -> anyhow::Result<ExitCode> {
     Ok(ExitCode::SUCCESS)
 }
 
-/// 1234567 → "1,234,567".
-pub fn thousands(n: u64) -> String {
-    let s = n.to_string();
-    let mut out = String::with_capacity(s.len() + s.len() / 3);
-    for (i, c) in s.chars().enumerate() {
-        if i > 0 && (s.len() - i) % 3 == 0 {
-            out.push(',');
-        }
-        out.push(c);
-    }
-    out
-}
+/// 1234567 → "1,234,567" (one formatter for every command's output).
+pub use flow_analytics::render::thousands;
 
 /// "a 3, b 1" from a reason map; empty when the map is.
 pub fn reasons(map: &std::collections::BTreeMap<String, u64>) -> String {

@@ -274,7 +274,7 @@ impl Runner {
                                 }
                             }
                         }
-                        if message % PROGRESS_EVERY == 0 {
+                        if message.is_multiple_of(PROGRESS_EVERY) {
                             progress.set(done_before + reader.bytes_read(), decoder.stats().records_decoded);
                         }
                     }

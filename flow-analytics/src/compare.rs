@@ -468,7 +468,7 @@ impl CompareQuery {
                 });
             }
         }
-        if t.baseline_seconds % t.every_seconds != 0 {
+        if !t.baseline_seconds.is_multiple_of(t.every_seconds) {
             return bad("the baseline span is not a whole number of buckets");
         }
         Ok(())

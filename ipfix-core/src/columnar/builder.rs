@@ -93,7 +93,11 @@ fn be_at<const L: usize>(r: &[u8], s: usize) -> u64 {
 /// Appends one value per record, `f` reading it from the record's octets:
 /// the values are written in place, so the loop is the conversion alone.
 #[inline(always)]
-fn fill<T: ArrowPrimitiveType>(b: &mut PrimitiveBuilder<T>, records: ChunksExact<'_, u8>, f: impl Fn(&[u8]) -> T::Native) {
+fn fill<'r, T: ArrowPrimitiveType>(
+    b: &mut PrimitiveBuilder<T>,
+    records: impl ExactSizeIterator<Item = &'r [u8]>,
+    f: impl Fn(&[u8]) -> T::Native,
+) {
     let start = b.len();
     b.append_value_n(T::Native::default(), records.len());
     if let Some(dst) = b.values_slice_mut().get_mut(start..) {
@@ -106,9 +110,9 @@ fn fill<T: ArrowPrimitiveType>(b: &mut PrimitiveBuilder<T>, records: ChunksExact
 /// [`fill`] with an unsigned field of `len` octets at `s`, converted by
 /// `conv` (given `len` fits the column's width). False for other lengths.
 #[inline(always)]
-fn fill_uint<T: ArrowPrimitiveType>(
+fn fill_uint<'r, T: ArrowPrimitiveType>(
     b: &mut PrimitiveBuilder<T>,
-    records: ChunksExact<'_, u8>,
+    records: impl ExactSizeIterator<Item = &'r [u8]>,
     s: usize,
     len: usize,
     conv: impl Fn(u64) -> T::Native + Copy,
@@ -337,7 +341,14 @@ impl Scalar {
     /// one column at a time: the type dispatch happens once per set, and
     /// the common types convert in a tight loop. The others go value by
     /// value through [`append_raw`](Self::append_raw).
-    fn append_column(&mut self, decode: Decode, records: ChunksExact<'_, u8>, s: usize, e: usize, stats: &mut ColumnarStats) {
+    fn append_column<'r>(
+        &mut self,
+        decode: Decode,
+        records: impl ExactSizeIterator<Item = &'r [u8]> + Clone,
+        s: usize,
+        e: usize,
+        stats: &mut ColumnarStats,
+    ) {
         let len = e.saturating_sub(s);
         let done = match (&mut *self, decode) {
             (Self::U8(b), Decode::Unsigned) if len <= 1 => fill_uint(b, records.clone(), s, len, |v| v as u8),
@@ -691,6 +702,10 @@ struct PlanMap {
     /// (start, end) of every field when all are fixed-length and there are
     /// no lists: records are then sliced without walking.
     layout: Option<Vec<(usize, usize)>>,
+    /// (start, end) of the leading fields at a fixed offset that are not
+    /// lists, for plans without a layout: those columns are appended a
+    /// column at a time, the rest of each record field by field.
+    prefix: Vec<(usize, usize)>,
 }
 
 /// Column positions that do not depend on the plan.
@@ -846,7 +861,18 @@ impl TableBuilder {
                 .collect::<Option<Vec<_>>>(),
             _ => None,
         };
-        PlanMap { slots, absent, derived, scope_names, has_lists, layout }
+        let prefix = match layout {
+            Some(_) => Vec::new(),
+            None => plan
+                .fields()
+                .iter()
+                .map_while(|f| {
+                    let list = matches!(f.decode, Decode::BasicList | Decode::SubTemplateList | Decode::SubTemplateMultiList);
+                    f.offset.filter(|_| !f.is_variable() && !list).map(|o| (o, o + usize::from(f.spec.length)))
+                })
+                .collect(),
+        };
+        PlanMap { slots, absent, derived, scope_names, has_lists, layout, prefix }
     }
 
     fn plan_map(&mut self, plan: &Arc<Plan>) -> Arc<PlanMap> {
@@ -899,12 +925,24 @@ impl TableBuilder {
         let n = match self.fixed_records(&map, set) {
             Some(records) => self.append_fixed_set(&map, set, records, &ctx, groups),
             None => {
-                let mut n = 0usize;
-                for record in set.records() {
-                    self.append_record(&map, &record, &ctx, groups);
-                    n += 1;
+                let skip = if self.row_path { 0 } else { map.prefix.len() };
+                if skip == 0 {
+                    let mut n = 0usize;
+                    for record in set.records() {
+                        self.append_record(&map, &record, &ctx, groups, 0);
+                        n += 1;
+                    }
+                    n
+                } else {
+                    // The fixed leading fields a column at a time, then the
+                    // rest of each record.
+                    let records: Vec<Record<'_>> = set.records().collect();
+                    self.append_field_columns(&map, set.plan(), &map.prefix, records.iter().map(|r| r.bytes()));
+                    for record in &records {
+                        self.append_record(&map, record, &ctx, groups, skip);
+                    }
+                    records.len()
                 }
-                n
             }
         };
         if let Some(base) = self.fixed.derived {
@@ -968,6 +1006,36 @@ impl TableBuilder {
         Some(body.chunks_exact(len))
     }
 
+    /// Appends the fields at `spans` (the plan's first fields, each at a
+    /// fixed offset and not a list) of every record, a column at a time.
+    fn append_field_columns<'r>(
+        &mut self,
+        map: &PlanMap,
+        plan: &Plan,
+        spans: &[(usize, usize)],
+        records: impl ExactSizeIterator<Item = &'r [u8]> + Clone,
+    ) {
+        let n = records.len();
+        for ((slot, field), (s, e)) in map.slots.iter().zip(plan.fields()).zip(spans) {
+            if slot.column == UNPLACED {
+                self.stats.values_unplaced += n as u64;
+                continue;
+            }
+            if field.length_mismatch {
+                self.stats.values_octets_fallback += n as u64;
+            }
+            match self.columns.get_mut(slot.column) {
+                Some(Column::Scalar(col)) => col.append_column(slot.decode, records.clone(), *s, *e, &mut self.stats),
+                Some(col) => {
+                    // These fields are not lists; defensive only.
+                    col.append_nulls(n);
+                    self.stats.values_null_invalid += n as u64;
+                }
+                None => {}
+            }
+        }
+    }
+
     /// Appends a fixed-layout set column by column; returns the rows.
     fn append_fixed_set(
         &mut self,
@@ -979,24 +1047,7 @@ impl TableBuilder {
     ) -> usize {
         let n = records.len();
         let Some(layout) = map.layout.as_deref() else { return 0 };
-        for ((slot, field), (s, e)) in map.slots.iter().zip(set.plan().fields()).zip(layout) {
-            if slot.column == UNPLACED {
-                self.stats.values_unplaced += n as u64;
-                continue;
-            }
-            if field.length_mismatch {
-                self.stats.values_octets_fallback += n as u64;
-            }
-            match self.columns.get_mut(slot.column) {
-                Some(Column::Scalar(col)) => col.append_column(slot.decode, records.clone(), *s, *e, &mut self.stats),
-                Some(col) => {
-                    // A layout has no list fields; defensive only.
-                    col.append_nulls(n);
-                    self.stats.values_null_invalid += n as u64;
-                }
-                None => {}
-            }
-        }
+        self.append_field_columns(map, set.plan(), layout, records.clone());
         let Some(base) = self.fixed.derived.filter(|_| groups != 0) else { return n };
         let mut groups = groups;
         if let Some((_, end)) = map.derived.fwd.and_then(|i| layout.get(i)).filter(|_| groups & group::FWD != 0) {
@@ -1060,7 +1111,9 @@ impl TableBuilder {
         n
     }
 
-    fn append_record(&mut self, map: &PlanMap, record: &Record<'_>, ctx: &SetContext<'_>, groups: u8) {
+    /// Appends one record's fields from index `skip` on (the earlier ones
+    /// were appended a column at a time) and its derived columns.
+    fn append_record(&mut self, map: &PlanMap, record: &Record<'_>, ctx: &SetContext<'_>, groups: u8, skip: usize) {
         let data = record.bytes();
         let fields = record.plan().fields();
         if let Some(layout) = map.layout.as_deref().filter(|_| data.len() == record.plan().fixed_len().unwrap_or(0)) {
@@ -1086,7 +1139,9 @@ impl TableBuilder {
                 data.get(s..e)
             });
             ok &= raw.is_some();
-            self.put(map, record, i, *slot, field.length_mismatch, raw);
+            if i >= skip {
+                self.put(map, record, i, *slot, field.length_mismatch, raw);
+            }
         }
         let Some(base) = self.fixed.derived.filter(|_| groups != 0) else { return };
         let spans = std::mem::take(&mut self.spans);

@@ -1136,11 +1136,13 @@ mod prop {
             // (element id, length): srhSegmentIPv6, sourceIPv4Address,
             // packetDeltaCount sent in 4 octets, egressInterface, an octetArray.
             let elements = [(494u16, 16u16), (8, 4), (2, 4), (14, 4), (ie::id::MPLS_VPN_ROUTE_DISTINGUISHER, 8)];
-            let f = [(496u16, VARIABLE_LENGTH), (291, VARIABLE_LENGTH), (2, 4)];
+            // A fixed prefix (appended a column at a time) before the lists.
+            let f = [(8u16, 4u16), (27, 16), (1, 8), (496, VARIABLE_LENGTH), (291, VARIABLE_LENGTH), (2, 4)];
             let records: Vec<Vec<u8>> = lists
                 .iter()
                 .map(|(sem, a, b, n)| {
-                    let mut r = basic_list(*sem, elements[*a], *n, &noise);
+                    let mut r: Vec<u8> = noise.iter().copied().cycle().skip(usize::from(*sem)).take(28).collect();
+                    r.extend(basic_list(*sem, elements[*a], *n, &noise));
                     r.extend(basic_list(*sem, elements[*b], *n, &noise));
                     r.extend_from_slice(&[0, 0, 0, 7]);
                     r

@@ -6,10 +6,10 @@ use std::slice::ChunksExact;
 use std::sync::Arc;
 
 use arrow::array::{
-    ArrayBuilder, ArrayRef, ArrowPrimitiveType, PrimitiveBuilder, BooleanBuilder, FixedSizeBinaryBuilder, Float32Builder, Float64Builder,
-    Int16Builder, Int32Builder, Int64Builder, Int8Builder, ListBuilder, RecordBatch, StringBuilder, StructBuilder,
-    TimestampMicrosecondBuilder, TimestampMillisecondBuilder, TimestampNanosecondBuilder, TimestampSecondBuilder,
-    UInt16Builder, UInt32Builder, UInt64Builder, UInt8Builder,
+    ArrayBuilder, ArrayRef, ArrowPrimitiveType, BooleanBuilder, FixedSizeBinaryBuilder, Float32Builder, Float64Builder,
+    Int16Builder, Int32Builder, Int64Builder, Int8Builder, ListBuilder, PrimitiveBuilder, RecordBatch, StringBuilder,
+    StructBuilder, TimestampMicrosecondBuilder, TimestampMillisecondBuilder, TimestampNanosecondBuilder,
+    TimestampSecondBuilder, UInt16Builder, UInt32Builder, UInt64Builder, UInt8Builder,
 };
 use arrow::datatypes::{DataType as ArrowType, Field, TimeUnit};
 

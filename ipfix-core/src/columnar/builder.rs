@@ -381,6 +381,21 @@ impl Scalar {
                 }
                 true
             }
+            (Self::Binary(b), _) if (1..=8).contains(&len) && e >= 8 => {
+                for r in records.clone() {
+                    // The 8 octets that end with the field, shifted so the
+                    // field comes first: a fixed-size copy even for a field
+                    // at the very end of the record.
+                    match r.get(e - 8..e).and_then(|t| t.first_chunk::<8>()) {
+                        Some(c) => {
+                            let front = u64::from_be_bytes(*c).checked_shl(8 * (8 - len) as u32).unwrap_or(0);
+                            b.append_short(&front.to_be_bytes(), len);
+                        }
+                        None => b.append_bytes(r.get(s..e).unwrap_or_default()),
+                    }
+                }
+                true
+            }
             (Self::Binary(b), _) if len <= 16 => {
                 for r in records.clone() {
                     // A fixed-size copy where the record leaves room for one.

@@ -828,7 +828,7 @@ fn replay_same_message(config: &Config, session: &TransportSession, pass: &mut P
     if pass.new_pending.is_empty() {
         return Ok(());
     }
-    for p in std::mem::take(&mut pass.new_pending) {
+    for mut p in std::mem::take(&mut pass.new_pending) {
         let Some(plan) = pass.table.get(&p.template_id).cloned() else {
             pass.new_pending.push(p);
             continue;
@@ -838,22 +838,37 @@ fn replay_same_message(config: &Config, session: &TransportSession, pass: &mut P
         pass.pending_bytes = pass.pending_bytes.saturating_sub(p.data.len());
         pass.unresolved = pass.unresolved.saturating_sub(1);
         pass.records += count as u64;
-        pass.stats.sets_replayed += 1;
-        note_records(pass, &plan, count);
-        pass.events.push(Event::Data(DataSet {
-            session: *session,
-            header: p.header,
-            received: p.received,
-            templates: Arc::clone(&pass.table),
-            plan,
-            data: Cow::Owned(p.data),
-            count,
-            offset: p.offset,
-            max_depth: config.max_list_depth,
-            replayed: true,
-        }));
+        let data = std::mem::take(&mut p.data);
+        push_replayed(config, session, pass, &p, plan, data, count);
     }
     Ok(())
+}
+
+/// Counts a buffered Data Set decoded now that its template is known
+/// (RFC 7011 §9.3) and emits it, carrying its own message's header.
+fn push_replayed(
+    config: &Config,
+    session: &TransportSession,
+    pass: &mut Pass<'_>,
+    p: &Pending,
+    plan: Arc<Plan>,
+    data: Vec<u8>,
+    count: usize,
+) {
+    pass.stats.sets_replayed += 1;
+    note_records(pass, &plan, count);
+    pass.events.push(Event::Data(DataSet {
+        session: *session,
+        header: p.header,
+        received: p.received,
+        templates: Arc::clone(&pass.table),
+        plan,
+        data: Cow::Owned(data),
+        count,
+        offset: p.offset,
+        max_depth: config.max_list_depth,
+        replayed: true,
+    }));
 }
 
 /// Counts the records of a Data Set, checking every length. Octets after the
@@ -993,21 +1008,8 @@ fn define<'a>(
         let scope = Scope { templates: &pass.table, depth: 0, max_depth: config.max_list_depth };
         match count_records(&plan, &p.data, p.offset + SET_HEADER_LEN, scope) {
             Ok(count) => {
-                pass.stats.sets_replayed += 1;
                 pass.replayed_earlier += count as u64;
-                note_records(pass, &plan, count);
-                pass.events.push(Event::Data(DataSet {
-                    session: *session,
-                    header: p.header,
-                    received: p.received,
-                    templates: Arc::clone(&pass.table),
-                    plan: Arc::clone(&plan),
-                    data: Cow::Owned(p.data.clone()),
-                    count,
-                    offset: p.offset,
-                    max_depth: config.max_list_depth,
-                    replayed: true,
-                }));
+                push_replayed(config, session, pass, p, Arc::clone(&plan), p.data.clone(), count);
             }
             Err(_) => {
                 // The earlier message was accepted before its template was

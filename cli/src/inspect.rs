@@ -318,20 +318,9 @@ pub struct DomainView {
 #[derive(Debug, Serialize)]
 #[serde(rename_all = "camelCase")]
 pub struct ExporterView {
-    /// `udp`, `tcp`, `sctp` or `file`.
-    pub transport: &'static str,
-    /// Exporter address and port.
-    pub exporter: Option<String>,
-    /// Collector address and port.
-    pub collector: Option<String>,
-    /// Input where first seen.
-    pub input: String,
-    /// First capture time.
-    pub first_captured: Option<String>,
-    /// Last capture time.
-    pub last_captured: Option<String>,
-    /// Malformed messages whose header named no domain.
-    pub messages_malformed_without_domain: u64,
+    /// Who and when, as the conversion accounting has it.
+    #[serde(flatten)]
+    pub session: pipeline::SessionSummary,
     /// Its observation domains.
     pub domains: Vec<DomainView>,
 }
@@ -420,16 +409,7 @@ fn build_report(acc: Accounting, mut collector: Collector) -> InspectReport {
                 rejected_templates: t.rejected,
             });
         }
-        exporters.push(ExporterView {
-            transport: s.transport,
-            exporter: s.exporter.clone(),
-            collector: s.collector.clone(),
-            input: s.input.clone(),
-            first_captured: s.first_captured.clone(),
-            last_captured: s.last_captured.clone(),
-            messages_malformed_without_domain: s.messages_malformed_without_domain,
-            domains,
-        });
+        exporters.push(ExporterView { session: s.session.clone(), domains });
     }
     InspectReport {
         command: "inspect",
@@ -533,6 +513,7 @@ pub fn write_table(out: &mut impl Write, r: &InspectReport, fields: bool) -> std
     }
     for e in &r.exporters {
         writeln!(out)?;
+        let (domains, e) = (&e.domains, &e.session);
         let who = match (&e.exporter, &e.collector) {
             (Some(x), Some(c)) => format!("{} {x} -> {c}", e.transport.to_uppercase()),
             _ => format!("FILE {}", e.input),
@@ -545,7 +526,7 @@ pub fn write_table(out: &mut impl Write, r: &InspectReport, fields: bool) -> std
         if e.messages_malformed_without_domain > 0 {
             writeln!(out, "  {} malformed messages without a readable header", thousands(e.messages_malformed_without_domain))?;
         }
-        for d in &e.domains {
+        for d in domains {
             let c = &d.counts;
             writeln!(
                 out,

@@ -52,7 +52,7 @@ mod accounting;
 mod progress;
 mod twopass;
 
-pub use accounting::{rfc3339, Accounting, BytesReport, MalformedExample, CaptureReport, DomainReport, InputReport, SessionReport, TemplateReport};
+pub use accounting::{rfc3339, Accounting, BytesReport, MalformedExample, CaptureReport, DomainReport, InputReport, SessionReport, SessionSummary, TemplateReport};
 pub use progress::Progress;
 pub use twopass::{convert, options_path_for, ConvertOutcome, ConvertSettings, PassSeconds, TableSummary};
 

@@ -120,8 +120,8 @@ fn udp_capture_every_record_written() {
     assert_eq!((a.records_skipped, a.sequence_gap_records, a.messages_malformed), (0, 0, 0));
     assert_eq!(a.messages, 10);
     let e = &a.exporters[0];
-    assert_eq!(e.transport, "udp");
-    assert_eq!(e.exporter.as_deref(), Some("192.0.2.1:50000"));
+    assert_eq!(e.session.transport, "udp");
+    assert_eq!(e.session.exporter.as_deref(), Some("192.0.2.1:50000"));
     assert_eq!(e.domains[0].records_by_template.get(&256), Some(&250));
     assert!(dir.path().join("out.options.parquet").exists());
 }
@@ -168,7 +168,7 @@ fn each_ipfix_file_is_its_own_session() {
     assert_eq!(a.records_decoded, 10);
     assert_eq!(a.sets_skipped_by_reason.get("template-never-arrived"), Some(&2));
     assert_eq!(a.exporters.len(), 2);
-    assert!(a.exporters.iter().all(|e| e.transport == "file"));
+    assert!(a.exporters.iter().all(|e| e.session.transport == "file"));
     // A split pcap keeps its UDP templates across files.
     let p1 = write_pcap(dir.path(), "p1.pcap", first);
     let p2 = write_pcap(dir.path(), "p2.pcap", second);

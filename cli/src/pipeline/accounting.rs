@@ -248,6 +248,18 @@ pub struct TemplateReport {
 #[derive(Debug, Clone, Serialize)]
 #[serde(rename_all = "camelCase")]
 pub struct SessionReport {
+    /// Who and when, as `inspect` shows it too.
+    #[serde(flatten)]
+    pub session: SessionSummary,
+    /// Per Observation Domain, by ID.
+    pub domains: Vec<DomainReport>,
+}
+
+/// A Transport Session's identity and the counters that belong to no
+/// Observation Domain.
+#[derive(Debug, Clone, Serialize)]
+#[serde(rename_all = "camelCase")]
+pub struct SessionSummary {
     /// `udp`, `tcp`, `sctp` or `file`.
     pub transport: &'static str,
     /// Exporter address and port (null for RFC 5655 files).
@@ -264,8 +276,6 @@ pub struct SessionReport {
     pub messages_malformed_without_domain: u64,
     /// By reason.
     pub malformed_without_domain_by_reason: BTreeMap<String, u64>,
-    /// Per Observation Domain, by ID.
-    pub domains: Vec<DomainReport>,
 }
 
 /// One Observation Domain of one session.
@@ -630,14 +640,16 @@ impl Accounting {
                 domains.push(r);
             }
             exporters.push(SessionReport {
-                transport: key.transport.name(),
-                exporter: key.exporter.map(|a| a.to_string()),
-                collector: key.collector.map(|a| a.to_string()),
-                input: inputs.get(acc.input).cloned().unwrap_or_default(),
-                first_captured: acc.first_captured.map(|t| rfc3339(t.as_secs())),
-                last_captured: acc.last_captured.map(|t| rfc3339(t.as_secs())),
-                messages_malformed_without_domain: acc.malformed_no_domain,
-                malformed_without_domain_by_reason: acc.malformed_no_domain_by_reason.clone(),
+                session: SessionSummary {
+                    transport: key.transport.name(),
+                    exporter: key.exporter.map(|a| a.to_string()),
+                    collector: key.collector.map(|a| a.to_string()),
+                    input: inputs.get(acc.input).cloned().unwrap_or_default(),
+                    first_captured: acc.first_captured.map(|t| rfc3339(t.as_secs())),
+                    last_captured: acc.last_captured.map(|t| rfc3339(t.as_secs())),
+                    messages_malformed_without_domain: acc.malformed_no_domain,
+                    malformed_without_domain_by_reason: acc.malformed_no_domain_by_reason.clone(),
+                },
                 domains,
             });
         }

@@ -18,7 +18,6 @@ Run: build the binary (`cargo build -p flowsift`), then `pytest tests/py`.
 
 import json
 import math
-import os
 import pathlib
 import subprocess
 from datetime import datetime
@@ -26,6 +25,7 @@ from datetime import datetime
 import duckdb
 import pytest
 from statsmodels.stats.proportion import proportion_confint, proportions_ztest
+from flowsift_cli import flowsift_bin
 
 ROOT = pathlib.Path(__file__).resolve().parents[2]
 SAMPLES = ROOT / "sample-captures"
@@ -38,12 +38,6 @@ CAPTURES = [
     "regional-carrier-quiet.pcapng",
 ]
 
-
-def flowsift_bin() -> str:
-    if "FLOWSIFT_BIN" in os.environ:
-        return os.environ["FLOWSIFT_BIN"]
-    target = os.environ.get("CARGO_TARGET_DIR", "/var/tmp/flowsift-target")
-    return os.path.join(target, "debug", "flowsift")
 
 
 def run(*args, check=True):

@@ -31,6 +31,7 @@ from scapy.packet import Raw
 from scapy.utils import wrpcap, wrpcapng
 
 import ipfix_bytes as ix
+from flowsift_cli import flowsift_bin
 
 EXPORTER = "192.0.2.1"
 EXPORTER6 = "2001:db8::1"
@@ -40,13 +41,6 @@ TS_MS = pa.timestamp("ms", tz="UTC")
 TS_S = pa.timestamp("s", tz="UTC")
 MAC = dict(src="00:00:5e:00:53:01", dst="00:00:5e:00:53:02")
 
-
-def flowsift_bin():
-    explicit = os.environ.get("FLOWSIFT_BIN")
-    if explicit:
-        return explicit
-    target = os.environ.get("CARGO_TARGET_DIR", "/var/tmp/flowsift-target")
-    return os.path.join(target, "debug", "flowsift")
 
 
 def run(*args, stdin=None):

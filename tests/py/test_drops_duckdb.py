@@ -28,12 +28,12 @@ import os
 import random
 import subprocess
 from datetime import datetime, timezone
-from pathlib import Path
 
 import duckdb
 import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
+from flowsift_cli import flowsift_bin
 
 T0 = int(datetime(2026, 11, 30, 1, 0, tzinfo=timezone.utc).timestamp())
 Z_95 = 1.96
@@ -102,13 +102,6 @@ SEGMENTS = [
 ]
 DROP_REASONS = ["acl-deny", "unroutable", "adjacency", "bad-ttl"]
 
-
-def flowsift_bin():
-    explicit = os.environ.get("FLOWSIFT_BIN")
-    if explicit:
-        return explicit
-    target = os.environ.get("CARGO_TARGET_DIR", "/var/tmp/flowsift-target")
-    return os.path.join(target, "debug", "flowsift")
 
 
 def run_flowsift(*args, fmt="json"):

@@ -21,17 +21,12 @@ import shutil
 import subprocess
 
 import pytest
+from flowsift_cli import flowsift_bin
 
 ROOT = pathlib.Path(__file__).resolve().parents[2]
 SAMPLES = ROOT / "sample-captures"
 WINDOW = "2026-11-30T00:50:00Z..2026-11-30T01:10:00Z"
 
-
-def flowsift_bin() -> str:
-    if "FLOWSIFT_BIN" in os.environ:
-        return os.environ["FLOWSIFT_BIN"]
-    target = os.environ.get("CARGO_TARGET_DIR", "/var/tmp/flowsift-target")
-    return os.path.join(target, "debug", "flowsift")
 
 
 @pytest.fixture(scope="module")

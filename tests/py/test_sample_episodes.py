@@ -10,11 +10,11 @@ the packet.
 """
 
 import json
-import os
 import pathlib
 import subprocess
 
 import pytest
+from flowsift_cli import flowsift_bin
 
 ROOT = pathlib.Path(__file__).resolve().parents[2]
 SAMPLES = sorted((ROOT / "sample-captures").glob("*.truth.json"))
@@ -32,10 +32,6 @@ WHERE_KEYS = {
 }
 BACKGROUND_RATIO = 0.01  # a domain without an episode drops under 1%
 
-
-def flowsift_bin():
-    target = os.environ.get("CARGO_TARGET_DIR", "/var/tmp/flowsift-target")
-    return os.environ.get("FLOWSIFT_BIN", os.path.join(target, "debug", "flowsift"))
 
 
 def run(*args):

@@ -494,23 +494,26 @@ fn malformed_template_record_past_set_end() {
     assert_discarded(Config::default(), tcp(), &good(), &bad, Malformed::TemplateOverrun { offset: 20, template_id: 261 });
 }
 
+/// A valid Template Set, then a Data Set whose Set Length (99) runs past
+/// the message end (RFC 7011 §3.3.2), for `domain`.
+fn template_then_overlong_set(domain: u32, seq: u32) -> (Vec<u8>, Malformed) {
+    let mut bad = message(domain, seq, T0, &[set(2, &tpl(400, &[(8, 4)])), data(1)]);
+    let at = bad.len() - 22;
+    bad[at..at + 2].copy_from_slice(&99u16.to_be_bytes());
+    (bad, Malformed::BadSetLength { offset: 28, set_id: 256, length: 99, remaining: 24 })
+}
+
 #[test]
 fn malformed_message_teaches_no_template() {
     // A valid Template Set before the bad Set is not learned either.
-    let mut bad = message(1, 1, T0, &[set(2, &tpl(400, &[(8, 4)])), data(1)]);
-    let at = bad.len() - 22;
-    bad[at..at + 2].copy_from_slice(&99u16.to_be_bytes());
-    let expected = Malformed::BadSetLength { offset: 28, set_id: 256, length: 99, remaining: 24 };
+    let (bad, expected) = template_then_overlong_set(1, 1);
     assert_discarded(Config::default(), tcp(), &good(), &bad, expected);
 }
 
 #[test]
 fn malformed_message_from_a_new_domain_leaves_no_state() {
     // The first message of domain 2 is malformed: no domain appears.
-    let mut bad = message(2, 0, T0, &[set(2, &tpl(400, &[(8, 4)])), data(1)]);
-    let at = bad.len() - 22;
-    bad[at..at + 2].copy_from_slice(&99u16.to_be_bytes());
-    let expected = Malformed::BadSetLength { offset: 28, set_id: 256, length: 99, remaining: 24 };
+    let (bad, expected) = template_then_overlong_set(2, 0);
     assert_discarded(Config::default(), tcp(), &good(), &bad, expected);
 }
 

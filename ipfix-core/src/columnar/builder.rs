@@ -757,7 +757,9 @@ pub struct TableBuilder {
     text: String,
     /// The exporter whose address `text` holds.
     text_of: Option<std::net::IpAddr>,
-    /// Appends every set record by record (tests compare the two paths).
+    /// Tests only: append every set record by record, field by field, to
+    /// compare the column paths with it.
+    #[cfg(test)]
     pub(crate) row_path: bool,
 }
 
@@ -804,6 +806,7 @@ impl TableBuilder {
             labels: Vec::new(),
             text: String::new(),
             text_of: None,
+            #[cfg(test)]
             row_path: false,
         }
     }
@@ -940,7 +943,7 @@ impl TableBuilder {
         let n = match self.fixed_records(&map, set) {
             Some(records) => self.append_fixed_set(&map, set, records, &ctx, groups),
             None => {
-                let skip = if self.row_path { 0 } else { map.prefix.len() };
+                let skip = if self.row_path() { 0 } else { map.prefix.len() };
                 if skip == 0 {
                     let mut n = 0usize;
                     for record in set.records() {
@@ -1010,9 +1013,18 @@ impl TableBuilder {
         n
     }
 
+    /// Whether a test asked for the record-by-record path.
+    #[inline]
+    const fn row_path(&self) -> bool {
+        #[cfg(test)]
+        return self.row_path;
+        #[cfg(not(test))]
+        false
+    }
+
     /// The records of a set whose plan has a fixed layout, as equal chunks.
     fn fixed_records<'s>(&self, map: &PlanMap, set: &'s DataSet<'_>) -> Option<ChunksExact<'s, u8>> {
-        if self.row_path {
+        if self.row_path() {
             return None;
         }
         map.layout.as_ref()?;
@@ -1131,18 +1143,6 @@ impl TableBuilder {
     fn append_record(&mut self, map: &PlanMap, record: &Record<'_>, ctx: &SetContext<'_>, groups: u8, skip: usize) {
         let data = record.bytes();
         let fields = record.plan().fields();
-        if let Some(layout) = map.layout.as_deref().filter(|_| data.len() == record.plan().fixed_len().unwrap_or(0)) {
-            // Fixed layout: every field at a known place.
-            for ((slot, field), (s, e)) in map.slots.iter().zip(fields).zip(layout) {
-                self.put(map, record, 0, *slot, field.length_mismatch, data.get(*s..*e));
-            }
-            if let Some(base) = self.fixed.derived.filter(|_| groups != 0) {
-                let raw = |i: usize| layout.get(i).and_then(|(s, e)| data.get(*s..*e));
-                let row = map.derived.compute(groups, raw, ctx, &mut self.labels, &mut self.stats);
-                self.append_derived(base, &row, groups);
-            }
-            return;
-        }
         self.spans.clear();
         let mut pos = 0usize;
         let mut ok = true;
@@ -1177,7 +1177,7 @@ impl TableBuilder {
         if mismatch {
             self.stats.values_octets_fallback += 1;
         }
-        if slot.decode == Decode::BasicList && !self.row_path {
+        if slot.decode == Decode::BasicList && !self.row_path() {
             if let (Some(Column::List(l)), Some(raw)) = (self.columns.get_mut(slot.column), raw) {
                 if append_scalar_list(l, raw, &mut self.stats) {
                     return;
@@ -1281,6 +1281,19 @@ impl TableBuilder {
     /// (the schema and plan cache are kept).
     pub fn finish(&mut self) -> Result<RecordBatch, ColumnarError> {
         debug_assert!(self.columns_in_step(), "every column holds one value per row");
+        for col in &mut self.columns {
+            let text = match col {
+                Column::Scalar(Scalar::Utf8(b) | Scalar::Binary(b)) => Some(b),
+                Column::List(l) => match l.values() {
+                    Scalar::Utf8(b) | Scalar::Binary(b) => Some(b),
+                    _ => None,
+                },
+                _ => None,
+            };
+            if let Some(b) = text {
+                self.stats.values_null_too_long += b.take_overflowed();
+            }
+        }
         let arrays: Vec<ArrayRef> = self.columns.iter_mut().map(Column::finish).collect();
         // The arrays took the buffers; start the next batch at full capacity
         // rather than growing from empty again.

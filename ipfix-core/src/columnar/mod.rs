@@ -225,6 +225,10 @@ pub struct ColumnarStats {
     /// or naming none while their exporter+domain has several different
     /// rates: samplingRate is null.
     pub sampling_unresolved: u64,
+    /// Text or octet values written as null because one batch's values in
+    /// their column would pass 2 GiB (Arrow's 32-bit offsets); counted when
+    /// the batch is finished.
+    pub values_null_too_long: u64,
 }
 
 /// The version of the Parquet contract written in the schema metadata.

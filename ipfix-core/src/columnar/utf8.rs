@@ -28,8 +28,9 @@ pub(crate) struct TextBuilder {
     offsets: Vec<i32>,
     values: Vec<u8>,
     nulls: NullBufferBuilder,
-    /// Values written as null because the batch's text passed 2 GiB.
-    pub(crate) overflowed: u64,
+    /// Values written as null because the batch's text passed 2 GiB
+    /// (taken by [`TextBuilder::take_overflowed`]).
+    overflowed: u64,
 }
 
 impl TextBuilder {
@@ -105,6 +106,11 @@ impl TextBuilder {
         self.values.extend_from_slice(buf);
         self.values.truncate(start + len.min(N));
         self.close(start);
+    }
+
+    /// The values written as null for passing 2 GiB since the last call.
+    pub(crate) fn take_overflowed(&mut self) -> u64 {
+        std::mem::take(&mut self.overflowed)
     }
 
     /// Appends a null.

@@ -671,7 +671,17 @@ fn append_records(
         stats.list_records_unknown_template += 1;
         return;
     }
-    let mut name = String::new();
+    let (mut name, mut value) = (String::new(), String::new());
+    // Arrow's string builder panics past 2 GiB of text in one array: a value
+    // that would get there is a null, counted.
+    let put = |b: &mut StringBuilder, text: &str, stats: &mut ColumnarStats| {
+        if b.values_slice().len().saturating_add(text.len()) <= i32::MAX as usize {
+            b.append_value(text);
+        } else {
+            b.append_null();
+            stats.values_null_too_long += 1;
+        }
+    };
     for record in records {
         head(sb);
         if let Some(f) = sb.field_builder::<ListBuilder<StructBuilder>>(2) {
@@ -679,12 +689,13 @@ fn append_records(
             for field in record.fields() {
                 name.clear();
                 write_field_name(field.spec, false, &mut name);
+                value.clear();
+                let _ = write_value_text(&field.value, &mut value);
                 if let Some(n) = nv.field_builder::<StringBuilder>(0) {
-                    n.append_value(&name);
+                    put(n, &name, stats);
                 }
                 if let Some(v) = nv.field_builder::<StringBuilder>(1) {
-                    let _ = write_value_text(&field.value, v);
-                    v.append_value("");
+                    put(v, &value, stats);
                 }
                 nv.append(true);
             }

@@ -226,8 +226,9 @@ pub struct ColumnarStats {
     /// rates: samplingRate is null.
     pub sampling_unresolved: u64,
     /// Text or octet values written as null because one batch's values in
-    /// their column would pass 2 GiB (Arrow's 32-bit offsets); counted when
-    /// the batch is finished.
+    /// their column would pass 2 GiB (Arrow's 32-bit offsets). Column values
+    /// are counted when the batch is finished, sub-template record texts
+    /// when appended.
     pub values_null_too_long: u64,
 }
 

@@ -255,14 +255,16 @@ fn bench(c: &mut Criterion) {
 mod columnar {
     //! The same messages decoded and appended to the Arrow builders of the
     //! Parquet writer (`ipfix_core::columnar::TableBuilder`), the way
-    //! `flowsift convert` does it, one batch per `DEFAULT_BATCH_ROWS` rows.
+    //! `flowsift convert` does it, one batch per `DEFAULT_BATCH_ROWS` rows;
+    //! and the same in the native layout (values as typed on the wire,
+    //! no text, no derived columns), as an embedder would take them.
     use std::hint::black_box;
     use std::sync::Arc;
     use std::time::Duration;
 
     use criterion::measurement::WallTime;
     use criterion::BenchmarkGroup;
-    use ipfix_core::columnar::{Enrichment, TableBuilder, TableSchema, DEFAULT_BATCH_ROWS};
+    use ipfix_core::columnar::{Enrichment, Layout, TableBuilder, TableKind, TableSchema, DEFAULT_BATCH_ROWS};
     use ipfix_core::{Config, Decoder, Event, TransportSession};
 
     pub fn bench_arrow(g: &mut BenchmarkGroup<'_, WallTime>, w: &super::Workload) {
@@ -275,9 +277,23 @@ mod columnar {
                 plans.push(plan);
             }
         }
-        let schema = Arc::new(TableSchema::flows(plans.iter().map(|p| &**p)));
         let enrichment = Enrichment::new();
-        g.bench_function("decode-to-arrow-builders", |b| {
+        for (bench, layout) in [("decode-to-arrow-builders", Layout::Readable), ("decode-to-arrow-native", Layout::Native)] {
+            let schema = Arc::new(TableSchema::with_layout(TableKind::Flows, plans.iter().map(|p| &**p), layout));
+            bench_one(g, w, bench, &schema, &enrichment);
+        }
+    }
+
+    fn bench_one(
+        g: &mut BenchmarkGroup<'_, WallTime>,
+        w: &super::Workload,
+        bench: &str,
+        schema: &Arc<TableSchema>,
+        enrichment: &Enrichment,
+    ) {
+        let session = TransportSession::udp("192.0.2.1:50000".parse().unwrap(), "198.51.100.1:4739".parse().unwrap());
+        let now = Some(Duration::from_secs(1_764_633_600));
+        g.bench_function(bench, |b| {
             b.iter(|| {
                 let mut decoder = Decoder::new(Config::default());
                 let mut builder = TableBuilder::new(schema.clone(), DEFAULT_BATCH_ROWS);
@@ -285,7 +301,7 @@ mod columnar {
                 for m in &w.messages {
                     for ev in decoder.decode(&session, now, m).unwrap() {
                         if let Event::Data(set) = ev {
-                            rows += builder.append(&set, &enrichment);
+                            rows += builder.append(&set, enrichment);
                             if builder.len() >= DEFAULT_BATCH_ROWS {
                                 black_box(builder.finish().unwrap());
                             }

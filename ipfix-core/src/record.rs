@@ -11,7 +11,7 @@ use crate::structured::{BasicList, SubTemplateList, SubTemplateMultiList};
 
 /// Templates known in one Observation Domain of one Transport Session, by
 /// Template ID; used to resolve templates referenced from RFC 6313 lists.
-pub type TemplateTable = HashMap<u16, Arc<Plan>>;
+pub type TemplateTable = HashMap<u16, Arc<Plan>, foldhash::fast::RandomState>;
 
 /// Seconds between the NTP epoch (1900-01-01) and the UNIX epoch
 /// (1970-01-01): 25,567 days × 86,400 s.
@@ -570,7 +570,7 @@ mod tests {
 
     #[test]
     fn reduced_size_widen_and_sign_extend() {
-        let t = TemplateTable::new();
+        let t = TemplateTable::default();
         // RFC 7011 §6.2: unsigned64 in 3 octets.
         assert_eq!(decode_value(Decode::Unsigned, &[0x01, 0x00, 0x00], scope(&t)), Value::Unsigned(65536));
         // RFC 7011 §6.2: signed values keep their sign: 0xff in one octet is -1.
@@ -582,7 +582,7 @@ mod tests {
     #[test]
     fn boolean_one_true_two_false() {
         // RFC 7011 §6.1.5: 1 = true, 2 = false.
-        let t = TemplateTable::new();
+        let t = TemplateTable::default();
         assert_eq!(decode_value(Decode::Boolean, &[1], scope(&t)), Value::Bool(true));
         assert_eq!(decode_value(Decode::Boolean, &[2], scope(&t)), Value::Bool(false));
         assert_eq!(decode_value(Decode::Boolean, &[0], scope(&t)), Value::Invalid(&[0]));

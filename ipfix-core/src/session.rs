@@ -9,6 +9,12 @@
 use std::borrow::Cow;
 use std::collections::hash_map::Entry;
 use std::collections::{BTreeMap, HashMap, VecDeque};
+
+/// The decoder's maps, looked up once or more per message: keyed with a
+/// fast hasher that is still seeded per map, so keys an exporter chooses
+/// (addresses, ports, domain and template ids) cannot be aimed at one
+/// bucket.
+type FastMap<K, V> = HashMap<K, V, foldhash::fast::RandomState>;
 use std::sync::Arc;
 use std::time::Duration;
 
@@ -396,7 +402,7 @@ pub struct DomainStats {
 #[derive(Debug, Default)]
 struct DomainState {
     templates: Arc<TemplateTable>,
-    refreshed: HashMap<u16, Duration>,
+    refreshed: FastMap<u16, Duration>,
     pending: VecDeque<Pending>,
     stats: DomainStats,
 }
@@ -412,7 +418,7 @@ struct Pending {
 
 #[derive(Debug, Default)]
 struct SessionState {
-    domains: HashMap<u32, DomainState>,
+    domains: FastMap<u32, DomainState>,
     template_count: usize,
 }
 
@@ -422,7 +428,7 @@ struct SessionState {
 #[derive(Debug, Default)]
 pub struct Decoder {
     config: Config,
-    sessions: HashMap<TransportSession, SessionState>,
+    sessions: FastMap<TransportSession, SessionState>,
     pending_bytes: usize,
     stats: Stats,
 }
@@ -447,6 +453,10 @@ struct Pass<'a> {
     template_delta: isize,
     stats: Stats,
     dstats: DomainStats,
+    /// Records per template id of this message (kept out of `dstats`'
+    /// map: a message has one or two templates, and a map per message
+    /// costs an allocation).
+    records_by_template: Vec<(u16, u64)>,
 }
 
 impl Decoder {
@@ -626,7 +636,7 @@ fn commit<'a>(
     let ds = &mut dstate.stats;
     ds.messages += 1;
     ds.records_decoded += pass.dstats.records_decoded;
-    for (t, n) in pass.dstats.records_by_template {
+    for (t, n) in pass.records_by_template {
         *ds.records_by_template.entry(t).or_default() += n;
     }
     ds.template_redefinitions += pass.dstats.template_redefinitions;
@@ -736,6 +746,7 @@ fn run_pass<'a>(
         template_delta: 0,
         stats: Stats::default(),
         dstats: DomainStats::default(),
+        records_by_template: Vec::new(),
     };
     expire_templates(dstate, config, session.transport, now, &mut pass);
     for set in Sets::new(body, HEADER_LEN) {
@@ -817,7 +828,11 @@ fn note_records(pass: &mut Pass<'_>, plan: &Plan, count: usize) {
         pass.stats.options_records_decoded += count as u64;
     }
     pass.dstats.records_decoded += count as u64;
-    *pass.dstats.records_by_template.entry(plan.id().0).or_default() += count as u64;
+    let id = plan.id().0;
+    match pass.records_by_template.iter_mut().find(|(t, _)| *t == id) {
+        Some((_, n)) => *n += count as u64,
+        None => pass.records_by_template.push((id, count as u64)),
+    }
 }
 
 /// Decodes the Data Sets buffered earlier in this message whose template the

@@ -6,7 +6,7 @@ use std::slice::ChunksExact;
 use std::sync::Arc;
 
 use arrow::array::{
-    ArrayBuilder, ArrayRef, ArrowPrimitiveType, BooleanBuilder, FixedSizeBinaryBuilder, Float32Builder, Float64Builder,
+    ArrayBuilder, ArrayRef, ArrowPrimitiveType, BooleanBuilder, Float32Builder, Float64Builder,
     Int16Builder, Int32Builder, Int64Builder, Int8Builder, ListBuilder, PrimitiveBuilder, RecordBatch, StringBuilder,
     StructBuilder, TimestampMicrosecondBuilder, TimestampMillisecondBuilder, TimestampNanosecondBuilder,
     TimestampSecondBuilder, UInt16Builder, UInt32Builder, UInt64Builder, UInt8Builder,
@@ -15,8 +15,9 @@ use arrow::datatypes::{DataType as ArrowType, Field, TimeUnit};
 
 use super::derive::{absolute_ns, be_uint, forwarding_texts, group, DerivedPlan, DerivedRow, SetContext, TimeSource};
 use super::enrich::{Enrichment, IdMap};
+use super::fixed::FixedBuilder;
 use super::schema::{
-    column_name, element_type, name_value_fields, record_struct_fields, write_field_name, ColumnRole, TableKind,
+    column_name, element_type_in, name_value_fields, record_struct_fields, write_field_name, ColumnRole, TableKind,
     TableSchema,
 };
 use super::text::{write_mac, write_value_text};
@@ -44,7 +45,9 @@ pub(crate) enum Scalar {
     Bool(BooleanBuilder),
     Utf8(TextBuilder),
     Binary(TextBuilder),
-    Fsb(FixedSizeBinaryBuilder),
+    /// FixedSizeBinary: unsigned256 (32 octets), and in the native layout
+    /// addresses (4, 16) and MAC addresses (6).
+    Fsb(FixedBuilder),
     TsS(TimestampSecondBuilder),
     TsMs(TimestampMillisecondBuilder),
     TsUs(TimestampMicrosecondBuilder),
@@ -193,7 +196,7 @@ impl Scalar {
             ArrowType::Boolean => Self::Bool(BooleanBuilder::with_capacity(capacity)),
             ArrowType::Utf8 => Self::Utf8(TextBuilder::with_capacity(capacity, capacity.saturating_mul(16))),
             ArrowType::Binary => Self::Binary(TextBuilder::binary_with_capacity(capacity, capacity.saturating_mul(8))),
-            ArrowType::FixedSizeBinary(w) => Self::Fsb(FixedSizeBinaryBuilder::with_capacity(capacity, *w)),
+            ArrowType::FixedSizeBinary(w) => Self::Fsb(FixedBuilder::with_capacity(usize::try_from(*w).ok()?, capacity)),
             ArrowType::Timestamp(TimeUnit::Second, _) => {
                 Self::TsS(TimestampSecondBuilder::with_capacity(capacity).with_timezone(tz))
             }
@@ -284,22 +287,17 @@ impl Scalar {
                 _ => null_invalid(b, stats),
             },
             Self::Binary(b) => b.append_bytes(raw),
+            Self::Fsb(b) if decode != Decode::Unsigned256 => {
+                // Native layout: addresses and MAC addresses as sent; the
+                // plan guarantees their length.
+                if !b.append_value(raw) {
+                    null_fsb(b, stats);
+                }
+            }
             Self::Fsb(b) => {
                 // unsigned256 sent reduced (RFC 7011 §6.2 by analogy): left-pad to 32.
-                let mut wide = [0u8; 32];
-                let width: usize = 32; // FixedSizeBinary(32): the only fixed-width type used
-                match wide.get_mut(width.saturating_sub(raw.len())..width) {
-                    Some(dst) if dst.len() == raw.len() => {
-                        dst.copy_from_slice(raw);
-                        if b.append_value(wide.get(..width).unwrap_or_default()).is_err() {
-                            b.append_null();
-                            stats.values_null_invalid += 1;
-                        }
-                    }
-                    _ => {
-                        b.append_null();
-                        stats.values_null_invalid += 1;
-                    }
+                if !append_unsigned256(b, raw) {
+                    null_fsb(b, stats);
                 }
             }
             Self::TsS(b) => {
@@ -372,6 +370,9 @@ impl Scalar {
                 }
                 true
             }
+            (Self::Fsb(b), Decode::Ipv4Address) if len == 4 => b.append_column::<4>(records.clone(), s),
+            (Self::Fsb(b), Decode::Ipv6Address) if len == 16 => b.append_column::<16>(records.clone(), s),
+            (Self::Fsb(b), Decode::MacAddress) if len == 6 => b.append_column::<6>(records.clone(), s),
             (Self::Utf8(b), Decode::Ipv6Address) if len == 16 => {
                 for r in records.clone() {
                     match r.get(s..).and_then(|t| t.first_chunk::<16>()) {
@@ -381,6 +382,8 @@ impl Scalar {
                 }
                 true
             }
+            // Octets of a common width in bulk; past 2 GiB value by value.
+            (Self::Binary(b), _) if matches!(len, 1..=4 | 8 | 16) => binary_column(b, records.clone(), s, len),
             (Self::Binary(b), _) if (1..=8).contains(&len) && e >= 8 => {
                 for r in records.clone() {
                     // The 8 octets that end with the field, shifted so the
@@ -465,16 +468,10 @@ impl Scalar {
                 b.append_bytes(x);
                 true
             }
-            (Self::Fsb(b), Value::Unsigned256(x)) => {
-                let mut wide = [0u8; 32];
-                match wide.get_mut(32usize.saturating_sub(x.len())..) {
-                    Some(dst) if dst.len() == x.len() => {
-                        dst.copy_from_slice(x);
-                        b.append_value(wide).is_ok()
-                    }
-                    _ => false,
-                }
-            }
+            (Self::Fsb(b), Value::Ipv4(a)) => b.append_value(&a.octets()),
+            (Self::Fsb(b), Value::Ipv6(a)) => b.append_value(&a.octets()),
+            (Self::Fsb(b), Value::Mac(m)) => b.append_value(m),
+            (Self::Fsb(b), Value::Unsigned256(x)) => b.width() == 32 && append_unsigned256(b, x),
             (Self::TsS(b), Value::DateTime(t)) => {
                 b.append_value(t.secs);
                 true
@@ -488,6 +485,26 @@ impl Scalar {
             self.append_nulls(1);
             stats.list_elements_null += 1;
         }
+    }
+}
+
+/// Appends a column of `len`-octet values at `s` in bulk; false, with
+/// nothing appended, where [`TextBuilder::append_fixed_width`] declines.
+#[inline]
+fn binary_column<'r>(
+    b: &mut TextBuilder,
+    records: impl ExactSizeIterator<Item = &'r [u8]> + Clone,
+    s: usize,
+    len: usize,
+) -> bool {
+    match len {
+        1 => b.append_fixed_width::<1>(records, s),
+        2 => b.append_fixed_width::<2>(records, s),
+        3 => b.append_fixed_width::<3>(records, s),
+        4 => b.append_fixed_width::<4>(records, s),
+        8 => b.append_fixed_width::<8>(records, s),
+        16 => b.append_fixed_width::<16>(records, s),
+        _ => false,
     }
 }
 
@@ -505,6 +522,24 @@ fn append_ipv6(b: &mut TextBuilder, a: &[u8; 16]) {
     let mut buf = [0u8; 48];
     let n = ipv6_text(a, &mut buf);
     b.append_short(&buf, n);
+}
+
+/// Appends an unsigned256 left-padded to 32 octets (RFC 7011 §6.2 by
+/// analogy); false, with nothing appended, for more than 32 octets.
+fn append_unsigned256(b: &mut FixedBuilder, raw: &[u8]) -> bool {
+    let mut wide = [0u8; 32];
+    match wide.get_mut(32usize.saturating_sub(raw.len())..) {
+        Some(dst) if dst.len() == raw.len() => {
+            dst.copy_from_slice(raw);
+            b.append_value(&wide)
+        }
+        _ => false,
+    }
+}
+
+fn null_fsb(b: &mut FixedBuilder, stats: &mut ColumnarStats) {
+    b.append_null();
+    stats.values_null_invalid += 1;
 }
 
 fn null_invalid(b: &mut TextBuilder, stats: &mut ColumnarStats) {
@@ -630,7 +665,7 @@ fn append_scalar_list(l: &mut ListBuilder<Scalar>, raw: &[u8], stats: &mut Colum
             | (Scalar::I8(_) | Scalar::I16(_) | Scalar::I32(_) | Scalar::I64(_), Decode::Signed)
             | (Scalar::Utf8(_), Decode::Ipv4Address | Decode::Ipv6Address)
             | (Scalar::Binary(_), Decode::Octets)
-    );
+    ) || matches!((l.values_ref(), list.decode), (Scalar::Fsb(b), Decode::Ipv4Address | Decode::Ipv6Address) if b.width() == len);
     if !same {
         return false;
     }
@@ -774,6 +809,11 @@ pub struct TableBuilder {
     pub(crate) row_path: bool,
 }
 
+/// Rows reserved past the capacity: callers finish a batch once it reaches
+/// the capacity, which the last set usually passes by a few records; the
+/// slack spares every column a reallocation (and copy) per batch.
+const SET_SLACK: usize = 256;
+
 /// Most plans kept in the mapping cache; past it the cache is cleared
 /// (plans are re-mapped on their next set).
 const MAX_CACHED_PLANS: usize = 4096;
@@ -788,7 +828,7 @@ impl TableBuilder {
             .map(|c| {
                 // Every schema type has a builder (tests check each); Binary
                 // is only a defensive fallback.
-                Column::new(&c.data_type, capacity)
+                Column::new(&c.data_type, capacity.saturating_add(SET_SLACK))
                     .unwrap_or_else(|| Column::Scalar(Scalar::Binary(TextBuilder::binary_with_capacity(capacity, 0))))
             })
             .collect();
@@ -852,7 +892,8 @@ impl TableBuilder {
                 Some(c)
                     if !used.get(c).copied().unwrap_or(true)
                         && self.schema.columns().get(c).is_some_and(|spec| {
-                            matches!(spec.role, ColumnRole::Element { .. }) && spec.data_type == element_type(field)
+                            matches!(spec.role, ColumnRole::Element { .. })
+                                && spec.data_type == element_type_in(field, self.schema.layout())
                         }) =>
                 {
                     if let Some(u) = used.get_mut(c) {
@@ -1310,7 +1351,7 @@ impl TableBuilder {
         // rather than growing from empty again.
         if self.rows > 0 {
             for (col, spec) in self.columns.iter_mut().zip(self.schema.columns()) {
-                if let Some(fresh) = Column::new(&spec.data_type, self.capacity) {
+                if let Some(fresh) = Column::new(&spec.data_type, self.capacity.saturating_add(SET_SLACK)) {
                     *col = fresh;
                 }
             }

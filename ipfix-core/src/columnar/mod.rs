@@ -133,6 +133,7 @@
 mod builder;
 mod derive;
 mod enrich;
+mod fixed;
 mod schema;
 mod sink;
 mod text;
@@ -147,8 +148,8 @@ pub use builder::TableBuilder;
 pub use derive::DerivedColumn;
 pub use enrich::{Enrichment, EnrichmentStats};
 pub use schema::{
-    basic_list_item_type, column_name, element_type, record_struct_type, ColumnRole, ColumnSpec, Provenance,
-    TableKind, TableSchema, CONTRACT_VERSION,
+    basic_list_item_type, basic_list_item_type_in, column_name, element_type, element_type_in, record_struct_type,
+    ColumnRole, ColumnSpec, Layout, Provenance, TableKind, TableSchema, CONTRACT_VERSION,
 };
 pub use sink::{
     Compression, ParquetSink, SinkOptions, SinkSummary, TableWriter, DEFAULT_BATCH_ROWS, DEFAULT_ROW_GROUP_ROWS,
@@ -234,5 +235,7 @@ pub struct ColumnarStats {
 
 /// The version of the Parquet contract written in the schema metadata.
 pub(crate) const CONTRACT_KEY: &str = "flowsift.contract";
+/// The schema metadata key naming a layout other than the readable one.
+pub(crate) const LAYOUT_KEY: &str = "flowsift.layout";
 /// The schema metadata key naming the table.
 pub(crate) const TABLE_KEY: &str = "flowsift.table";

@@ -8,7 +8,7 @@ use std::sync::Arc;
 use arrow::datatypes::{DataType as ArrowType, Field, Fields, Schema, SchemaRef, TimeUnit};
 
 use super::derive::DerivedColumn;
-use super::{CONTRACT_KEY, TABLE_KEY};
+use super::{CONTRACT_KEY, LAYOUT_KEY, TABLE_KEY};
 use crate::data_type::DataType;
 use crate::field::ElementId;
 use crate::ie;
@@ -33,6 +33,50 @@ impl TableKind {
         match self {
             Self::Flows => "flows",
             Self::Options => "options",
+        }
+    }
+}
+
+/// How element values are laid out in the columns.
+///
+/// [`Readable`](Self::Readable), the default, is the Parquet contract that
+/// `flowsift convert` writes and `flow-analytics` reads: addresses as text,
+/// plus the derived columns. [`Native`](Self::Native) is for embedders who
+/// want every value as typed on the wire and nothing computed: addresses
+/// and MAC addresses as their octets in network order
+/// (`FixedSizeBinary(4)`, `(16)`, `(6)`), no derived columns. The other
+/// types, the provenance columns and the sub-template list structs are the
+/// same in both.
+///
+/// ```
+/// use arrow::datatypes::DataType as ArrowType;
+/// use ipfix_core::columnar::{Layout, TableKind, TableSchema};
+/// use ipfix_core::{FieldSpecifier, Plan, Template, TemplateId};
+/// let t = Template { id: TemplateId(256), scope_field_count: 0, fields: vec![FieldSpecifier::iana(8, 4)] };
+/// let plan = Plan::compile(t)?;
+/// let readable = TableSchema::flows([&*plan]);
+/// let native = TableSchema::with_layout(TableKind::Flows, [&*plan], Layout::Native);
+/// let ty = |s: &TableSchema| s.columns().iter().find(|c| c.name == "sourceIPv4Address").map(|c| c.data_type.clone());
+/// assert_eq!(ty(&readable), Some(ArrowType::Utf8));
+/// assert_eq!(ty(&native), Some(ArrowType::FixedSizeBinary(4)));
+/// assert!(native.column_index("forwardingOutcome").is_none());
+/// # Ok::<(), ipfix_core::TemplateProblem>(())
+/// ```
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq, Hash)]
+pub enum Layout {
+    /// Addresses as text (RFC 5952 for IPv6), plus the derived columns.
+    #[default]
+    Readable,
+    /// Every element as typed on the wire; no derived columns.
+    Native,
+}
+
+impl Layout {
+    /// `"readable"` or `"native"`, as written under `flowsift.layout`.
+    pub const fn name(self) -> &'static str {
+        match self {
+            Self::Readable => "readable",
+            Self::Native => "native",
         }
     }
 }
@@ -123,6 +167,7 @@ pub struct ColumnSpec {
 #[derive(Debug, Clone)]
 pub struct TableSchema {
     kind: TableKind,
+    layout: Layout,
     columns: Vec<ColumnSpec>,
     index: HashMap<String, usize>,
     arrow: SchemaRef,
@@ -134,7 +179,7 @@ impl TableSchema {
     /// Columns: provenance, then one per element in order of first
     /// appearance over `plans`, then the derived columns.
     pub fn flows<'p>(plans: impl IntoIterator<Item = &'p Plan>) -> Self {
-        Self::build(TableKind::Flows, plans.into_iter().filter(|p| !p.is_options()))
+        Self::with_layout(TableKind::Flows, plans, Layout::Readable)
     }
 
     /// The options table of the given plans; non-options plans are skipped.
@@ -142,10 +187,18 @@ impl TableSchema {
     /// Columns: provenance, `scopeFields`, then one per element in order of
     /// first appearance over `plans`.
     pub fn options<'p>(plans: impl IntoIterator<Item = &'p Plan>) -> Self {
-        Self::build(TableKind::Options, plans.into_iter().filter(|p| p.is_options()))
+        Self::with_layout(TableKind::Options, plans, Layout::Readable)
     }
 
-    fn build<'p>(kind: TableKind, plans: impl Iterator<Item = &'p Plan>) -> Self {
+    /// The `kind` table of the given plans (those of the other kind are
+    /// skipped) in `layout`. [`flows`](Self::flows) and
+    /// [`options`](Self::options) are this with [`Layout::Readable`].
+    pub fn with_layout<'p>(kind: TableKind, plans: impl IntoIterator<Item = &'p Plan>, layout: Layout) -> Self {
+        let plans = plans.into_iter().filter(|p| p.is_options() == (kind == TableKind::Options));
+        Self::build(kind, plans, layout)
+    }
+
+    fn build<'p>(kind: TableKind, plans: impl Iterator<Item = &'p Plan>, layout: Layout) -> Self {
         let mut columns: Vec<ColumnSpec> = Provenance::ALL
             .iter()
             .map(|p| ColumnSpec { name: p.name().to_owned(), role: ColumnRole::Provenance(*p), data_type: p.data_type() })
@@ -176,24 +229,32 @@ impl TableSchema {
                         occurrence: field.occurrence,
                         octets: is_octets_fallback(field),
                     },
-                    data_type: element_type(field),
+                    data_type: element_type_in(field, layout),
                 });
             }
         }
         columns.extend(elements);
-        if kind == TableKind::Flows {
+        if kind == TableKind::Flows && layout == Layout::Readable {
             for d in DerivedColumn::ALL {
                 index.insert(d.name().to_owned(), columns.len());
                 columns.push(ColumnSpec { name: d.name().to_owned(), role: ColumnRole::Derived(d), data_type: d.data_type() });
             }
         }
         let fields: Vec<Field> = columns.iter().map(arrow_field).collect();
-        let metadata = HashMap::from([
+        let mut metadata = HashMap::from([
             (TABLE_KEY.to_owned(), kind.name().to_owned()),
             (CONTRACT_KEY.to_owned(), CONTRACT_VERSION.to_owned()),
         ]);
+        if layout != Layout::Readable {
+            metadata.insert(LAYOUT_KEY.to_owned(), layout.name().to_owned());
+        }
         let arrow = Arc::new(Schema::new_with_metadata(fields, metadata));
-        Self { kind, columns, index, arrow }
+        Self { kind, layout, columns, index, arrow }
+    }
+
+    /// The layout of the element columns.
+    pub const fn layout(&self) -> Layout {
+        self.layout
     }
 
     /// Which table this is.
@@ -310,8 +371,18 @@ pub(crate) fn timestamp(unit: TimeUnit) -> ArrowType {
     ArrowType::Timestamp(unit, Some("UTC".into()))
 }
 
-/// The Arrow type of a scalar IPFIX type; `None` for the list types.
-pub(crate) fn scalar_type(t: DataType) -> Option<ArrowType> {
+/// The Arrow type of a scalar IPFIX type in `layout`; `None` for the list
+/// types.
+pub(crate) fn scalar_type(t: DataType, layout: Layout) -> Option<ArrowType> {
+    Some(match (t, layout) {
+        (DataType::Ipv4Address, Layout::Native) => ArrowType::FixedSizeBinary(4),
+        (DataType::Ipv6Address, Layout::Native) => ArrowType::FixedSizeBinary(16),
+        (DataType::MacAddress, Layout::Native) => ArrowType::FixedSizeBinary(6),
+        (t, _) => readable_scalar_type(t)?,
+    })
+}
+
+fn readable_scalar_type(t: DataType) -> Option<ArrowType> {
     Some(match t {
         DataType::OctetArray => ArrowType::Binary,
         DataType::Unsigned8 => ArrowType::UInt8,
@@ -366,9 +437,15 @@ const BASIC_LIST_ELEMENTS: [(u16, &str); 11] = [
 /// lists) gets Utf8 items in the value text form, since the element is only
 /// known per record.
 pub fn basic_list_item_type(list: ElementId) -> ArrowType {
+    basic_list_item_type_in(list, Layout::Readable)
+}
+
+/// [`basic_list_item_type`] in `layout`: in [`Layout::Native`] the
+/// addresses of a registered list are `FixedSizeBinary` items.
+pub fn basic_list_item_type_in(list: ElementId, layout: Layout) -> ArrowType {
     basic_list_element(list)
         .and_then(|e| e.data_type)
-        .and_then(scalar_type)
+        .and_then(|t| scalar_type(t, layout))
         .unwrap_or(ArrowType::Utf8)
 }
 
@@ -402,12 +479,17 @@ pub(crate) fn name_value_fields() -> Fields {
 
 /// The Arrow type of a plan field's column (see the [module docs](super)).
 pub fn element_type(field: &PlanField) -> ArrowType {
+    element_type_in(field, Layout::Readable)
+}
+
+/// [`element_type`] in `layout`.
+pub fn element_type_in(field: &PlanField, layout: Layout) -> ArrowType {
     if is_octets_fallback(field) {
         return ArrowType::Binary;
     }
     match field.data_type {
-        DataType::BasicList => ArrowType::new_list(basic_list_item_type(field.spec.element), true),
+        DataType::BasicList => ArrowType::new_list(basic_list_item_type_in(field.spec.element, layout), true),
         DataType::SubTemplateList | DataType::SubTemplateMultiList => record_struct_type(),
-        t => scalar_type(t).unwrap_or(ArrowType::Binary),
+        t => scalar_type(t, layout).unwrap_or(ArrowType::Binary),
     }
 }

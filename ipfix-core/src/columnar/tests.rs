@@ -71,6 +71,11 @@ fn convert(session: TransportSession, messages: &[Vec<u8>]) -> Converted {
 /// [`convert`], optionally forcing the record-at-a-time path for sets the
 /// builder would append column by column.
 fn convert_by(session: TransportSession, messages: &[Vec<u8>], rows: bool) -> Converted {
+    convert_in(session, messages, rows, Layout::Readable)
+}
+
+/// [`convert_by`] in `layout`.
+fn convert_in(session: TransportSession, messages: &[Vec<u8>], rows: bool, layout: Layout) -> Converted {
     let mut plans = Vec::new();
     let mut enrichment = Enrichment::new();
     let mut d = Decoder::new(Config::default());
@@ -85,8 +90,8 @@ fn convert_by(session: TransportSession, messages: &[Vec<u8>], rows: bool) -> Co
             }
         }
     }
-    let schema = Arc::new(TableSchema::flows(plans.iter().map(|p| &**p)));
-    let oschema = Arc::new(TableSchema::options(plans.iter().map(|p| &**p)));
+    let schema = Arc::new(TableSchema::with_layout(TableKind::Flows, plans.iter().map(|p| &**p), layout));
+    let oschema = Arc::new(TableSchema::with_layout(TableKind::Options, plans.iter().map(|p| &**p), layout));
     let mut flows = TableBuilder::new(schema.clone(), 16);
     let mut options = TableBuilder::new(oschema, 16);
     flows.row_path = rows;
@@ -1109,6 +1114,129 @@ mod prop {
         }
     }
 
+    /// The value of a native-layout column in the readable layout's form:
+    /// addresses through std's `Display` (RFC 5952 for IPv6) and MAC
+    /// addresses as six colon-separated lower-case hex pairs, for
+    /// FixedSizeBinary(4/16/6); `None` for columns both layouts share.
+    fn readable_text(c: &dyn Array) -> Option<Vec<Option<String>>> {
+        let fixed = c.as_any().downcast_ref::<FixedSizeBinaryArray>()?;
+        let text = |v: &[u8]| match v.len() {
+            4 => <[u8; 4]>::try_from(v).map(|a| Ipv4Addr::from(a).to_string()).ok(),
+            16 => <[u8; 16]>::try_from(v).map(|a| std::net::Ipv6Addr::from(a).to_string()).ok(),
+            6 => Some(v.iter().map(|b| format!("{b:02x}")).collect::<Vec<_>>().join(":")),
+            _ => None,
+        };
+        (fixed.value_length() != 32).then(|| fixed.iter().map(|v| v.and_then(text)).collect())
+    }
+
+    proptest! {
+        #![proptest_config(ProptestConfig::with_cases(64))]
+
+        /// The native layout keeps every value: its column path equals its
+        /// record path, every column it shares with the readable layout is
+        /// equal, and its address and MAC octets give the readable texts.
+        #[test]
+        fn native_layout_keeps_every_value(noise in proptest::collection::vec(any::<u8>(), 1..300), n in 1usize..40) {
+            let f: Vec<(u16, u16)> = fields().into_iter().filter(|(_, len)| *len != VARIABLE_LENGTH).collect();
+            let records: Vec<Vec<u8>> = (0..n).map(|i| record(&f, noise.get(i % noise.len()..).unwrap_or_default())).collect();
+            let messages = encode(&f, &records);
+            let native = convert_in(udp(), &messages, false, Layout::Native);
+            let native_rows = convert_in(udp(), &messages, true, Layout::Native);
+            let readable = convert_by(udp(), &messages, false);
+            prop_assert_eq!(native.flows.num_rows(), n);
+            prop_assert_eq!(&native.flows, &native_rows.flows);
+            prop_assert_eq!(&native.stats, &native_rows.stats);
+            let mut addresses = 0;
+            for field in native.flows.schema().fields() {
+                let (a, b) = (native.flows.column_by_name(field.name()).unwrap(), readable.flows.column_by_name(field.name()));
+                let b = b.unwrap_or_else(|| panic!("{} missing from the readable layout", field.name()));
+                match readable_text(a.as_ref()) {
+                    Some(texts) => {
+                        addresses += 1;
+                        let r = b.as_any().downcast_ref::<StringArray>().unwrap();
+                        let expected: Vec<Option<String>> = r.iter().map(|s| s.map(str::to_owned)).collect();
+                        prop_assert_eq!(texts, expected, "{}", field.name());
+                    }
+                    None => prop_assert_eq!(a.as_ref(), b.as_ref(), "{}", field.name()),
+                }
+            }
+            // ipv4Address, ipv6Address, macAddress at least (IANA types).
+            prop_assert!(addresses >= 3);
+            prop_assert_eq!(native.stats.values_null_invalid, readable.stats.values_null_invalid);
+            prop_assert_eq!(native.stats.values_octets_fallback, readable.stats.values_octets_fallback);
+        }
+
+        /// The same for lists: srhSegmentIPv6BasicList items become
+        /// FixedSizeBinary(16) in the native layout; the generic basicList
+        /// (IE 291) keeps its text items.
+        #[test]
+        fn native_layout_lists(
+            noise in proptest::collection::vec(any::<u8>(), 1..64),
+            lists in proptest::collection::vec((any::<u8>(), 0usize..5, 0usize..5), 1..20),
+        ) {
+            // (element id, length): srhSegmentIPv6, sourceIPv4Address,
+            // packetDeltaCount in 4 octets, egressInterface, sourceMacAddress.
+            let elements = [(494u16, 16u16), (8, 4), (2, 4), (14, 4), (56, 6)];
+            let f = [(8u16, 4u16), (496, VARIABLE_LENGTH), (291, VARIABLE_LENGTH), (2, 4)];
+            let records: Vec<Vec<u8>> = lists
+                .iter()
+                .map(|(sem, a, n)| {
+                    let mut r: Vec<u8> = noise.iter().copied().cycle().skip(usize::from(*sem)).take(4).collect();
+                    r.extend(basic_list(*sem, elements[*a], *n, &noise));
+                    r.extend(basic_list(*sem, elements[(*a + 1) % 5], *n, &noise));
+                    r.extend_from_slice(&[0, 0, 0, 7]);
+                    r
+                })
+                .collect();
+            let loose: Vec<ElementId> = f.iter().map(|(ie, _)| ElementId::iana(*ie)).collect();
+            let mut e = super::loose(encoder(9), &loose);
+            e.add_template(template(256, 0, &f)).unwrap();
+            for r in &records {
+                e.push_raw(TemplateId(256), r).unwrap();
+            }
+            let messages = e.finish(EXPORT_TIME);
+            let native = convert_in(udp(), &messages, false, Layout::Native);
+            let native_rows = convert_in(udp(), &messages, true, Layout::Native);
+            let readable = convert_by(udp(), &messages, false);
+            prop_assert_eq!(native.flows.num_rows(), records.len());
+            prop_assert_eq!(&native.flows, &native_rows.flows);
+            prop_assert_eq!(&native.stats, &native_rows.stats);
+            let texts = |b: &RecordBatch, name: &str| -> Vec<Option<Vec<Option<String>>>> {
+                let l = col::<ListArray>(b, name);
+                (0..l.len())
+                    .map(|i| {
+                        l.is_valid(i).then(|| {
+                            let v = l.value(i);
+                            readable_text(v.as_ref()).unwrap_or_else(|| {
+                                v.as_any().downcast_ref::<StringArray>().unwrap().iter().map(|s| s.map(str::to_owned)).collect()
+                            })
+                        })
+                    })
+                    .collect()
+            };
+            // Items agree, except elements of another type than the list's
+            // registered element (an IPv4 address in a list of IPv6
+            // segments): readable text takes any value, a FixedSizeBinary(16)
+            // item cannot, so they are null and counted.
+            let mut mismatched = 0u64;
+            for name in ["srhSegmentIPv6BasicList", "basicList"] {
+                let (a, b) = (texts(&native.flows, name), texts(&readable.flows, name));
+                prop_assert_eq!(a.len(), b.len());
+                for (x, y) in a.iter().zip(&b) {
+                    let (x, y) = (x.as_ref().unwrap(), y.as_ref().unwrap());
+                    prop_assert_eq!(x.len(), y.len());
+                    for (u, v) in x.iter().zip(y) {
+                        if u != v {
+                            prop_assert!(u.is_none(), "{}: {:?} vs {:?}", name, u, v);
+                            mismatched += 1;
+                        }
+                    }
+                }
+            }
+            prop_assert_eq!(native.stats.list_elements_null, readable.stats.list_elements_null + mismatched);
+        }
+    }
+
     /// A basicList field value (with its 1-octet length prefix): semantic,
     /// element (id, length) and `n` elements of `noise` octets (RFC 6313 §4.5.1).
     fn basic_list(semantic: u8, (id, len): (u16, u16), n: usize, noise: &[u8]) -> Vec<u8> {
@@ -1169,4 +1297,63 @@ mod prop {
         let ok: Vec<Vec<u8>> = messages.iter().filter(|m| d.decode(&session, None, m).is_ok()).cloned().collect();
         convert(session, &ok)
     }
+}
+
+// ---------------------------------------------------------------------------
+// Native layout
+// ---------------------------------------------------------------------------
+
+/// RFC 7011 Appendix A.2.1's template (sourceIPv4Address,
+/// destinationIPv4Address, ipNextHopIPv4Address, packetDeltaCount,
+/// octetDeltaCount) and the first record of A.3, in the native layout:
+/// addresses are their four octets in network order, no derived columns,
+/// and the schema says which layout it is.
+#[test]
+fn native_layout_rfc7011_appendix_a() {
+    let fields = [(8, 4), (12, 4), (15, 4), (2, 4), (1, 4)];
+    let mut e = encoder(0);
+    e.add_template(template(256, 0, &fields)).unwrap();
+    let mut r = vec![192, 0, 2, 12, 192, 0, 2, 254, 192, 0, 2, 1];
+    r.extend_from_slice(&[0, 0, 0x13, 0x91, 0, 0x51, 0x8c, 0x81]); // 5009 packets, 5344385 octets
+    e.push_raw(TemplateId(256), &r).unwrap();
+    let c = convert_in(udp(), &e.finish(EXPORT_TIME), false, Layout::Native);
+    assert_eq!(c.schema.layout(), Layout::Native);
+    assert_eq!(c.flows.schema().metadata().get("flowsift.layout").map(String::as_str), Some("native"));
+    assert!(c.schema.columns().iter().all(|s| !matches!(s.role, ColumnRole::Derived(_))));
+    let addr = |name: &str| col::<FixedSizeBinaryArray>(&c.flows, name).value(0).to_vec();
+    assert_eq!(addr("sourceIPv4Address"), [192, 0, 2, 12]);
+    assert_eq!(addr("destinationIPv4Address"), [192, 0, 2, 254]);
+    assert_eq!(addr("ipNextHopIPv4Address"), [192, 0, 2, 1]);
+    assert_eq!(col::<UInt64Array>(&c.flows, "packetDeltaCount").value(0), 5009);
+    assert_eq!(col::<UInt64Array>(&c.flows, "octetDeltaCount").value(0), 5_344_385);
+    // The readable layout has no layout key (files written before it existed
+    // look the same).
+    let readable = convert(udp(), &e.finish(EXPORT_TIME));
+    assert!(!readable.flows.schema().metadata().contains_key("flowsift.layout"));
+}
+
+/// Native types per IANA abstract type (RFC 7011 §6.1): only addresses
+/// and MAC addresses differ from the readable layout; registered basicLists
+/// of addresses get FixedSizeBinary items (srhSegmentIPv6BasicList, IE 496,
+/// holds srhSegmentIPv6 values per the IANA registry).
+#[test]
+fn native_layout_types() {
+    for t in DataType::ALL {
+        let Some(ie) = ie::all().iter().find(|e| e.data_type == Some(t)) else { continue };
+        let Some(len) = t.natural_length() else { continue };
+        let p = plan(template(256, 0, &[(ie.id, len)]));
+        let field = &p.fields()[0];
+        let expected = match t {
+            DataType::Ipv4Address => ArrowType::FixedSizeBinary(4),
+            DataType::Ipv6Address => ArrowType::FixedSizeBinary(16),
+            DataType::MacAddress => ArrowType::FixedSizeBinary(6),
+            _ => element_type(field),
+        };
+        assert_eq!(element_type_in(field, Layout::Native), expected, "type {t}");
+    }
+    assert_eq!(
+        basic_list_item_type_in(ElementId::iana(ie::id::SRH_SEGMENT_IPV6_BASIC_LIST), Layout::Native),
+        ArrowType::FixedSizeBinary(16)
+    );
+    assert_eq!(basic_list_item_type_in(ElementId::iana(291), Layout::Native), ArrowType::Utf8);
 }

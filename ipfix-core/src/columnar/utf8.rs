@@ -137,6 +137,37 @@ impl TextBuilder {
         }
     }
 
+    /// Appends the `L` octets at `s` of every record (Binary columns):
+    /// values and offsets in bulk. False, with nothing appended, when a
+    /// record is too short or the batch would pass 2 GiB.
+    #[inline]
+    pub(crate) fn append_fixed_width<'r, const L: usize>(
+        &mut self,
+        records: impl ExactSizeIterator<Item = &'r [u8]> + Clone,
+        s: usize,
+    ) -> bool {
+        let n = records.len();
+        let start = self.pending_start();
+        let Some(end) = n.checked_mul(L).and_then(|b| b.checked_add(start)) else { return false };
+        if i32::try_from(end).is_err() || records.clone().any(|r| r.len() < s + L) {
+            return false;
+        }
+        self.values.truncate(start);
+        self.values.resize(end, 0);
+        if let Some(dst) = self.values.get_mut(start..) {
+            for (d, r) in dst.chunks_exact_mut(L).zip(records) {
+                if let (Some(d), Some(v)) = (d.first_chunk_mut::<L>(), r.get(s..).and_then(|t| t.first_chunk::<L>())) {
+                    *d = *v;
+                }
+            }
+        }
+        // `end` fits an i32, so every offset up to it does.
+        let base = start as i32;
+        self.offsets.extend((1..=n as i32).map(|i| base + i * L as i32));
+        self.nulls.append_n_non_nulls(n);
+        true
+    }
+
     /// Appends `s` `n` times.
     pub(crate) fn append_repeated(&mut self, s: &str, n: usize) {
         self.values.truncate(self.pending_start());

@@ -1,0 +1,130 @@
+//! The FixedSizeBinary column builder: unsigned256 values, and in the
+//! native layout addresses and MAC addresses as sent.
+//!
+//! Arrow's own builder checks each value's length and returns a `Result`
+//! per value; a column of a fixed-layout set is known to have the width
+//! before the loop, so here a whole column is copied at a fixed size with
+//! no per-value check. The buffers become a [`FixedSizeBinaryArray`]
+//! through Arrow's checked constructor.
+
+use std::any::Any;
+use std::sync::Arc;
+
+use arrow::array::builder::NullBufferBuilder;
+use arrow::array::{ArrayBuilder, ArrayRef, FixedSizeBinaryArray};
+use arrow::buffer::Buffer;
+
+/// A FixedSizeBinary column under construction.
+#[derive(Debug)]
+pub(crate) struct FixedBuilder {
+    width: usize,
+    values: Vec<u8>,
+    nulls: NullBufferBuilder,
+}
+
+impl FixedBuilder {
+    /// Values of `width` octets, room for `items`.
+    pub(crate) fn with_capacity(width: usize, items: usize) -> Self {
+        Self {
+            width,
+            values: Vec::with_capacity(width.saturating_mul(items)),
+            nulls: NullBufferBuilder::new(items),
+        }
+    }
+
+    /// The width of every value.
+    pub(crate) const fn width(&self) -> usize {
+        self.width
+    }
+
+    /// Appends `v`; false, with nothing appended, when it is not `width`
+    /// octets long.
+    #[inline]
+    pub(crate) fn append_value(&mut self, v: &[u8]) -> bool {
+        if v.len() != self.width {
+            return false;
+        }
+        self.values.extend_from_slice(v);
+        self.nulls.append_non_null();
+        true
+    }
+
+    /// Appends a null (`width` zero octets in the values).
+    pub(crate) fn append_null(&mut self) {
+        self.append_nulls(1);
+    }
+
+    /// Appends `n` nulls.
+    pub(crate) fn append_nulls(&mut self, n: usize) {
+        let len = self.values.len().saturating_add(self.width.saturating_mul(n));
+        self.values.resize(len, 0);
+        self.nulls.append_n_nulls(n);
+    }
+
+    /// Appends the `L` octets at `s` of every record (`L` must be the
+    /// width); false, with nothing appended, otherwise or when a record is
+    /// too short.
+    #[inline]
+    pub(crate) fn append_column<'r, const L: usize>(
+        &mut self,
+        records: impl ExactSizeIterator<Item = &'r [u8]> + Clone,
+        s: usize,
+    ) -> bool {
+        let n = records.len();
+        if L != self.width || records.clone().any(|r| r.len() < s + L) {
+            return false;
+        }
+        let start = self.values.len();
+        self.values.resize(start + n * L, 0);
+        if let Some(dst) = self.values.get_mut(start..) {
+            for (d, r) in dst.chunks_exact_mut(L).zip(records) {
+                if let (Some(d), Some(v)) = (d.first_chunk_mut::<L>(), r.get(s..).and_then(|t| t.first_chunk::<L>())) {
+                    *d = *v;
+                }
+            }
+        }
+        self.nulls.append_n_non_nulls(n);
+        true
+    }
+
+    fn build(width: usize, values: Vec<u8>, nulls: Option<arrow::buffer::NullBuffer>) -> ArrayRef {
+        let w = i32::try_from(width).unwrap_or(i32::MAX);
+        let len = values.len().checked_div(width).unwrap_or(0);
+        FixedSizeBinaryArray::try_new(w, Buffer::from_vec(values), nulls).map_or_else(
+            |e| {
+                // Every writer here appends `width` octets per value.
+                debug_assert!(false, "fixed-width column: {e}");
+                Arc::new(FixedSizeBinaryArray::new_null(w, len)) as ArrayRef
+            },
+            |a| Arc::new(a) as ArrayRef,
+        )
+    }
+}
+
+impl ArrayBuilder for FixedBuilder {
+    fn len(&self) -> usize {
+        self.nulls.len()
+    }
+
+    fn finish(&mut self) -> ArrayRef {
+        let values = std::mem::take(&mut self.values);
+        let nulls = self.nulls.finish();
+        Self::build(self.width, values, nulls)
+    }
+
+    fn finish_cloned(&self) -> ArrayRef {
+        Self::build(self.width, self.values.clone(), self.nulls.finish_cloned())
+    }
+
+    fn as_any(&self) -> &dyn Any {
+        self
+    }
+
+    fn as_any_mut(&mut self) -> &mut dyn Any {
+        self
+    }
+
+    fn into_box_any(self: Box<Self>) -> Box<dyn Any> {
+        self
+    }
+}

@@ -135,6 +135,18 @@ pub struct Plan {
     fixed_len: Option<usize>,
     min_len: usize,
     has_lists: bool,
+    /// The record walk: runs of fixed-length non-list fields merged.
+    steps: Vec<Step>,
+}
+
+/// One step of the walk over a record (see [`Plan::steps`]).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub(crate) enum Step {
+    /// Fixed-length fields that are not lists: this many octets in all.
+    Fixed(usize),
+    /// A variable-length field or a list (whose content is checked): the
+    /// field at this index.
+    Field(usize),
 }
 
 /// Upper bound on fields in one template: more than fit in a maximal
@@ -194,7 +206,16 @@ impl Plan {
         if min_len == 0 {
             return Err(TemplateProblem::EmptyRecord);
         }
-        Ok(Arc::new(Self { template, fields, fixed_len: offset, min_len, has_lists }))
+        let mut steps = Vec::new();
+        for (i, f) in fields.iter().enumerate() {
+            let list = matches!(f.decode, Decode::BasicList | Decode::SubTemplateList | Decode::SubTemplateMultiList);
+            match steps.last_mut() {
+                _ if f.is_variable() || list => steps.push(Step::Field(i)),
+                Some(Step::Fixed(n)) => *n += usize::from(f.spec.length),
+                _ => steps.push(Step::Fixed(usize::from(f.spec.length))),
+            }
+        }
+        Ok(Arc::new(Self { template, fields, fixed_len: offset, min_len, has_lists, steps }))
     }
 
     /// The template this plan was compiled from.
@@ -220,6 +241,11 @@ impl Plan {
     /// The shortest possible record (variable fields counted as 1 octet).
     pub const fn min_len(&self) -> usize {
         self.min_len
+    }
+
+    /// The record walk: runs of fixed-length fields as one step each.
+    pub(crate) fn steps(&self) -> &[Step] {
+        &self.steps
     }
 
     /// True when any field is an RFC 6313 list.

@@ -6,7 +6,7 @@ use std::sync::Arc;
 
 use crate::data_type::DataType;
 use crate::field::FieldSpecifier;
-use crate::plan::{Decode, Plan, PlanField};
+use crate::plan::{Decode, Plan, PlanField, Step};
 use crate::structured::{BasicList, SubTemplateList, SubTemplateMultiList};
 
 /// Templates known in one Observation Domain of one Transport Session, by
@@ -397,9 +397,11 @@ pub(crate) fn record_span(plan: &Plan, data: &[u8], pos: usize) -> Option<usize>
         return (data.len().saturating_sub(pos) >= len).then_some(len);
     }
     let mut at = pos;
-    for f in plan.fields() {
-        let (_, end) = field_span(data, at, &f.spec)?;
-        at = end;
+    for step in plan.steps() {
+        at = match *step {
+            Step::Fixed(n) => at.checked_add(n).filter(|e| *e <= data.len())?,
+            Step::Field(i) => field_span(data, at, &plan.fields().get(i)?.spec)?.1,
+        };
     }
     Some(at - pos)
 }
@@ -422,6 +424,29 @@ pub(crate) fn record_len(
             return Ok(len);
         }
     }
+    // The walk by steps; a record it does not accept is walked again field
+    // by field to say which field failed and where.
+    let mut at = Some(pos);
+    for step in plan.steps() {
+        at = at.and_then(|at| match *step {
+            Step::Fixed(n) => at.checked_add(n).filter(|e| *e <= data.len()),
+            Step::Field(i) => {
+                let f = plan.fields().get(i)?;
+                let (start, end) = field_span(data, at, &f.spec)?;
+                let value = data.get(start..end)?;
+                crate::structured::validate(f.decode, value, scope).ok().map(|()| end)
+            }
+        });
+    }
+    match at {
+        Some(end) => Ok(end - pos),
+        None => record_fault(plan, data, pos, scope),
+    }
+}
+
+/// The field-by-field walk of [`record_len`], for a record that fails.
+#[cold]
+fn record_fault(plan: &Plan, data: &[u8], pos: usize, scope: Scope<'_>) -> Result<usize, RecordFault> {
     let mut at = pos;
     for (i, f) in plan.fields().iter().enumerate() {
         let Some((start, end)) = field_span(data, at, &f.spec) else {
@@ -616,5 +641,52 @@ mod size_tests {
     fn value_stays_small() {
         // Values are returned per field on the hot path; keep them compact.
         assert!(std::mem::size_of::<super::Value<'static>>() <= 40);
+    }
+}
+
+#[cfg(test)]
+mod walk_tests {
+    use proptest::prelude::*;
+
+    use super::*;
+    use crate::field::{FieldSpecifier, TemplateId, VARIABLE_LENGTH};
+    use crate::template::Template;
+
+    proptest! {
+        /// The walk by merged steps accepts exactly the records the
+        /// field-by-field walk accepts (RFC 7011 §7 variable-length
+        /// fields, RFC 6313 lists), with the same length; `record_span`
+        /// agrees on the length too.
+        #[test]
+        fn step_walk_equals_field_walk(
+            // (element, length): fixed and variable fields, basicList (291)
+            // and subTemplateList (292) among them.
+            fields in proptest::collection::vec(
+                prop_oneof![Just((8u16, 4u16)), Just((2, 8)), Just((27, 16)), Just((82, VARIABLE_LENGTH)),
+                            Just((291, VARIABLE_LENGTH)), Just((292, VARIABLE_LENGTH)), Just((4, 1))],
+                1..8),
+            data in proptest::collection::vec(any::<u8>(), 0..120),
+            pos in 0usize..8,
+        ) {
+            let t = Template {
+                id: TemplateId(256),
+                scope_field_count: 0,
+                fields: fields.iter().map(|(id, len)| FieldSpecifier::iana(*id, *len)).collect(),
+            };
+            let plan = Plan::compile(t).unwrap();
+            let templates = TemplateTable::default();
+            let scope = Scope { templates: &templates, depth: 0, max_depth: 4 };
+            let fast = record_len(&plan, &data, pos, scope);
+            let slow = record_fault(&plan, &data, pos, scope);
+            // An all-fixed record without lists is checked as a whole
+            // (its fault names the record, not a field).
+            let whole = plan.fixed_len().is_some() && !plan.has_lists();
+            if !(whole && fast.is_err() && slow.is_err()) {
+                prop_assert_eq!(fast, slow);
+            }
+            if let Ok(n) = fast {
+                prop_assert_eq!(record_span(&plan, &data, pos), Some(n));
+            }
+        }
     }
 }

@@ -6,19 +6,23 @@ use std::slice::ChunksExact;
 use std::sync::Arc;
 
 use arrow::array::{
-    ArrayBuilder, ArrayRef, ArrowPrimitiveType, BooleanBuilder, Float32Builder, Float64Builder,
-    Int16Builder, Int32Builder, Int64Builder, Int8Builder, ListBuilder, PrimitiveBuilder, RecordBatch, StringBuilder,
-    StructBuilder, TimestampMicrosecondBuilder, TimestampMillisecondBuilder, TimestampNanosecondBuilder,
-    TimestampSecondBuilder, UInt16Builder, UInt32Builder, UInt64Builder, UInt8Builder,
+    ArrayBuilder, ArrayRef, ArrowPrimitiveType, BooleanBuilder, ListBuilder, RecordBatch, StringBuilder, StructBuilder,
+    UInt16Builder, UInt8Builder,
+};
+use arrow::datatypes::{
+    Float32Type, Float64Type, Int16Type, Int32Type, Int64Type, Int8Type, TimestampMicrosecondType,
+    TimestampMillisecondType, TimestampNanosecondType, TimestampSecondType, UInt16Type, UInt32Type, UInt64Type,
+    UInt8Type,
 };
 use arrow::datatypes::{DataType as ArrowType, Field, TimeUnit};
 
 use super::derive::{absolute_ns, be_uint, forwarding_texts, group, DerivedPlan, DerivedRow, SetContext, TimeSource};
 use super::enrich::{Enrichment, IdMap};
 use super::fixed::FixedBuilder;
+use super::prim::Prim;
 use super::schema::{
-    column_name, element_type_in, name_value_fields, record_struct_fields, write_field_name, ColumnRole, TableKind,
-    TableSchema,
+    column_name, element_type_in, name_value_fields, record_struct_fields, timestamp, write_field_name, ColumnRole,
+    TableKind, TableSchema,
 };
 use super::text::{write_mac, write_value_text};
 use super::utf8::{ipv4_text, ipv6_text, TextBuilder};
@@ -32,26 +36,26 @@ use crate::structured::Records;
 /// columns, hence the [`ArrayBuilder`] impl.
 #[derive(Debug)]
 pub(crate) enum Scalar {
-    U8(UInt8Builder),
-    U16(UInt16Builder),
-    U32(UInt32Builder),
-    U64(UInt64Builder),
-    I8(Int8Builder),
-    I16(Int16Builder),
-    I32(Int32Builder),
-    I64(Int64Builder),
-    F32(Float32Builder),
-    F64(Float64Builder),
+    U8(Prim<UInt8Type>),
+    U16(Prim<UInt16Type>),
+    U32(Prim<UInt32Type>),
+    U64(Prim<UInt64Type>),
+    I8(Prim<Int8Type>),
+    I16(Prim<Int16Type>),
+    I32(Prim<Int32Type>),
+    I64(Prim<Int64Type>),
+    F32(Prim<Float32Type>),
+    F64(Prim<Float64Type>),
     Bool(BooleanBuilder),
     Utf8(TextBuilder),
     Binary(TextBuilder),
     /// FixedSizeBinary: unsigned256 (32 octets), and in the native layout
     /// addresses (4, 16) and MAC addresses (6).
     Fsb(FixedBuilder),
-    TsS(TimestampSecondBuilder),
-    TsMs(TimestampMillisecondBuilder),
-    TsUs(TimestampMicrosecondBuilder),
-    TsNs(TimestampNanosecondBuilder),
+    TsS(Prim<TimestampSecondType>),
+    TsMs(Prim<TimestampMillisecondType>),
+    TsUs(Prim<TimestampMicrosecondType>),
+    TsNs(Prim<TimestampNanosecondType>),
 }
 
 /// Sign-extends a big-endian two's complement value of 1..=8 octets
@@ -94,27 +98,21 @@ fn be_at<const L: usize>(r: &[u8], s: usize) -> u64 {
 }
 
 /// Appends one value per record, `f` reading it from the record's octets:
-/// the values are written in place, so the loop is the conversion alone.
+/// the builder's values are extended straight from the loop.
 #[inline(always)]
 fn fill<'r, T: ArrowPrimitiveType>(
-    b: &mut PrimitiveBuilder<T>,
+    b: &mut Prim<T>,
     records: impl ExactSizeIterator<Item = &'r [u8]>,
     f: impl Fn(&[u8]) -> T::Native,
 ) {
-    let start = b.len();
-    b.append_value_n(T::Native::default(), records.len());
-    if let Some(dst) = b.values_slice_mut().get_mut(start..) {
-        for (d, r) in dst.iter_mut().zip(records) {
-            *d = f(r);
-        }
-    }
+    b.extend_values(records.map(f));
 }
 
 /// [`fill`] with an unsigned field of `len` octets at `s`, converted by
 /// `conv` (given `len` fits the column's width). False for other lengths.
 #[inline(always)]
 fn fill_uint<'r, T: ArrowPrimitiveType>(
-    b: &mut PrimitiveBuilder<T>,
+    b: &mut Prim<T>,
     records: impl ExactSizeIterator<Item = &'r [u8]>,
     s: usize,
     len: usize,
@@ -181,33 +179,32 @@ macro_rules! append_or_null {
 
 impl Scalar {
     fn new(t: &ArrowType, capacity: usize) -> Option<Self> {
-        let tz = "UTC";
         Some(match t {
-            ArrowType::UInt8 => Self::U8(UInt8Builder::with_capacity(capacity)),
-            ArrowType::UInt16 => Self::U16(UInt16Builder::with_capacity(capacity)),
-            ArrowType::UInt32 => Self::U32(UInt32Builder::with_capacity(capacity)),
-            ArrowType::UInt64 => Self::U64(UInt64Builder::with_capacity(capacity)),
-            ArrowType::Int8 => Self::I8(Int8Builder::with_capacity(capacity)),
-            ArrowType::Int16 => Self::I16(Int16Builder::with_capacity(capacity)),
-            ArrowType::Int32 => Self::I32(Int32Builder::with_capacity(capacity)),
-            ArrowType::Int64 => Self::I64(Int64Builder::with_capacity(capacity)),
-            ArrowType::Float32 => Self::F32(Float32Builder::with_capacity(capacity)),
-            ArrowType::Float64 => Self::F64(Float64Builder::with_capacity(capacity)),
+            ArrowType::UInt8 => Self::U8(Prim::with_capacity(capacity)),
+            ArrowType::UInt16 => Self::U16(Prim::with_capacity(capacity)),
+            ArrowType::UInt32 => Self::U32(Prim::with_capacity(capacity)),
+            ArrowType::UInt64 => Self::U64(Prim::with_capacity(capacity)),
+            ArrowType::Int8 => Self::I8(Prim::with_capacity(capacity)),
+            ArrowType::Int16 => Self::I16(Prim::with_capacity(capacity)),
+            ArrowType::Int32 => Self::I32(Prim::with_capacity(capacity)),
+            ArrowType::Int64 => Self::I64(Prim::with_capacity(capacity)),
+            ArrowType::Float32 => Self::F32(Prim::with_capacity(capacity)),
+            ArrowType::Float64 => Self::F64(Prim::with_capacity(capacity)),
             ArrowType::Boolean => Self::Bool(BooleanBuilder::with_capacity(capacity)),
             ArrowType::Utf8 => Self::Utf8(TextBuilder::with_capacity(capacity, capacity.saturating_mul(16))),
             ArrowType::Binary => Self::Binary(TextBuilder::binary_with_capacity(capacity, capacity.saturating_mul(8))),
             ArrowType::FixedSizeBinary(w) => Self::Fsb(FixedBuilder::with_capacity(usize::try_from(*w).ok()?, capacity)),
             ArrowType::Timestamp(TimeUnit::Second, _) => {
-                Self::TsS(TimestampSecondBuilder::with_capacity(capacity).with_timezone(tz))
+                Self::TsS(Prim::with_capacity(capacity).with_data_type(timestamp(TimeUnit::Second)))
             }
             ArrowType::Timestamp(TimeUnit::Millisecond, _) => {
-                Self::TsMs(TimestampMillisecondBuilder::with_capacity(capacity).with_timezone(tz))
+                Self::TsMs(Prim::with_capacity(capacity).with_data_type(timestamp(TimeUnit::Millisecond)))
             }
             ArrowType::Timestamp(TimeUnit::Microsecond, _) => {
-                Self::TsUs(TimestampMicrosecondBuilder::with_capacity(capacity).with_timezone(tz))
+                Self::TsUs(Prim::with_capacity(capacity).with_data_type(timestamp(TimeUnit::Microsecond)))
             }
             ArrowType::Timestamp(TimeUnit::Nanosecond, _) => {
-                Self::TsNs(TimestampNanosecondBuilder::with_capacity(capacity).with_timezone(tz))
+                Self::TsNs(Prim::with_capacity(capacity).with_data_type(timestamp(TimeUnit::Nanosecond)))
             }
             _ => return None,
         })
@@ -1196,9 +1193,12 @@ impl TableBuilder {
         let data = record.bytes();
         let fields = record.plan().fields();
         self.spans.clear();
-        let mut pos = 0usize;
-        let mut ok = true;
-        for (i, (slot, field)) in map.slots.iter().zip(fields).enumerate() {
+        // The first `skip` fields sit at the fixed offsets of `map.prefix`.
+        let lead = map.prefix.get(..skip).unwrap_or_default();
+        self.spans.extend(lead.iter().map(|&(s, e)| (e <= data.len()).then_some((s, e))));
+        let mut pos = lead.last().map_or(0, |&(_, e)| e);
+        let mut ok = self.spans.iter().all(Option::is_some);
+        for (i, (slot, field)) in map.slots.iter().zip(fields).enumerate().skip(lead.len()) {
             let span = if ok { field_span(data, pos, &field.spec) } else { None };
             self.spans.push(span);
             let raw = span.and_then(|(s, e)| {
@@ -1206,9 +1206,7 @@ impl TableBuilder {
                 data.get(s..e)
             });
             ok &= raw.is_some();
-            if i >= skip {
-                self.put(map, record, i, *slot, field.length_mismatch, raw);
-            }
+            self.put(map, record, i, *slot, field.length_mismatch, raw);
         }
         let Some(base) = self.fixed.derived.filter(|_| groups != 0) else { return };
         let spans = std::mem::take(&mut self.spans);

@@ -67,21 +67,28 @@ impl FixedBuilder {
     #[inline]
     pub(crate) fn append_column<'r, const L: usize>(
         &mut self,
-        records: impl ExactSizeIterator<Item = &'r [u8]> + Clone,
+        records: impl ExactSizeIterator<Item = &'r [u8]>,
         s: usize,
     ) -> bool {
         let n = records.len();
-        if L != self.width || records.clone().any(|r| r.len() < s + L) {
+        if L != self.width {
             return false;
         }
         let start = self.values.len();
-        self.values.resize(start + n * L, 0);
+        self.values.resize(start.saturating_add(n.saturating_mul(L)), 0);
+        let mut whole = true;
         if let Some(dst) = self.values.get_mut(start..) {
             for (d, r) in dst.chunks_exact_mut(L).zip(records) {
-                if let (Some(d), Some(v)) = (d.first_chunk_mut::<L>(), r.get(s..).and_then(|t| t.first_chunk::<L>())) {
-                    *d = *v;
+                match (d.first_chunk_mut::<L>(), r.get(s..).and_then(|t| t.first_chunk::<L>())) {
+                    (Some(d), Some(v)) => *d = *v,
+                    _ => whole = false,
                 }
             }
+        }
+        if !whole {
+            // A record too short for the field: nothing appended.
+            self.values.truncate(start);
+            return false;
         }
         self.nulls.append_n_non_nulls(n);
         true

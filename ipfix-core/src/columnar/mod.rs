@@ -134,6 +134,7 @@ mod builder;
 mod derive;
 mod enrich;
 mod fixed;
+mod prim;
 mod schema;
 mod sink;
 mod text;

@@ -149,17 +149,24 @@ impl TextBuilder {
         let n = records.len();
         let start = self.pending_start();
         let Some(end) = n.checked_mul(L).and_then(|b| b.checked_add(start)) else { return false };
-        if i32::try_from(end).is_err() || records.clone().any(|r| r.len() < s + L) {
+        if i32::try_from(end).is_err() {
             return false;
         }
         self.values.truncate(start);
         self.values.resize(end, 0);
+        let mut whole = true;
         if let Some(dst) = self.values.get_mut(start..) {
             for (d, r) in dst.chunks_exact_mut(L).zip(records) {
-                if let (Some(d), Some(v)) = (d.first_chunk_mut::<L>(), r.get(s..).and_then(|t| t.first_chunk::<L>())) {
-                    *d = *v;
+                match (d.first_chunk_mut::<L>(), r.get(s..).and_then(|t| t.first_chunk::<L>())) {
+                    (Some(d), Some(v)) => *d = *v,
+                    _ => whole = false,
                 }
             }
+        }
+        if !whole {
+            // A record too short for the field: nothing appended.
+            self.values.truncate(start);
+            return false;
         }
         // `end` fits an i32, so every offset up to it does.
         let base = start as i32;
@@ -170,24 +177,30 @@ impl TextBuilder {
 
     /// Appends `s` `n` times.
     pub(crate) fn append_repeated(&mut self, s: &str, n: usize) {
-        self.values.truncate(self.pending_start());
-        self.values.reserve(s.len().saturating_mul(n));
-        self.offsets.reserve(n);
-        let mut padded = [0u8; 48];
-        match padded.get_mut(..s.len()) {
-            // Addresses (the exporter column): fixed-size copies.
-            Some(dst) => {
-                dst.copy_from_slice(s.as_bytes());
-                (0..n).for_each(|_| self.append_short(&padded, s.len()));
+        let start = self.pending_start();
+        let fits = s.len().checked_mul(n).and_then(|b| b.checked_add(start)).is_some_and(|end| i32::try_from(end).is_ok());
+        if !fits || s.is_empty() {
+            // Value by value: past 2 GiB each is nulled and counted.
+            for _ in 0..n {
+                let at = self.values.len();
+                self.values.extend_from_slice(s.as_bytes());
+                self.close(at);
             }
-            None => {
-                for _ in 0..n {
-                    let start = self.values.len();
-                    self.values.extend_from_slice(s.as_bytes());
-                    self.close(start);
-                }
-            }
+            return;
         }
+        // The text once, then doubled in place; offsets in one pass.
+        self.values.truncate(start);
+        self.values.extend_from_slice(s.as_bytes());
+        let end = start + s.len() * n;
+        while self.values.len() < end {
+            let have = self.values.len() - start;
+            let take = have.min(end - self.values.len());
+            self.values.extend_from_within(start..start + take);
+        }
+        // `end` fits an i32 (checked above), so every offset does.
+        let (base, len) = (start as i32, s.len() as i32);
+        self.offsets.extend((1..=n as i32).map(|i| base + i * len));
+        self.nulls.append_n_non_nulls(n);
     }
 
     fn build(binary: bool, offsets: Vec<i32>, values: Vec<u8>, nulls: Option<arrow::buffer::NullBuffer>) -> ArrayRef {

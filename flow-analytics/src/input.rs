@@ -171,6 +171,13 @@ pub(crate) struct FooterFacts {
     /// of that name), and the rows must be read. The inner `None`s: no row
     /// has a time.
     pub time_bounds: Option<(Option<i64>, Option<i64>)>,
+    /// Whether every row of every input carries `forwardingStatus` beside
+    /// the `forwardingOutcome` and `forwardingReason` columns derived from
+    /// it: each file has the three columns (an unsigned status of at most
+    /// 32 bits and two texts, none a partition column) and its statistics
+    /// count no null status in any row group. Then outcome and reason are
+    /// functions of the status ([`contract::forwarding_names`]).
+    pub status_everywhere: bool,
 }
 
 impl Inputs {
@@ -178,7 +185,9 @@ impl Inputs {
     pub(crate) fn footer_facts(&self) -> FooterFacts {
         let mut rows: Option<u64> = Some(0);
         let mut bounds = Some(TimeBounds::default());
+        let mut status = true;
         for group in &self.groups {
+            status &= group_has_status_columns(group);
             let partitioned = group.partitions.iter().any(|(key, _)| {
                 key == contract::FLOW_END_TIME || key == contract::EXPORT_TIME
             });
@@ -190,8 +199,17 @@ impl Inputs {
                     .ok()
                     .and_then(|mut file| polars_parquet::parquet::read::read_metadata(&mut file).ok());
                 let Some(metadata) = metadata else {
-                    return FooterFacts { rows: None, time_bounds: None };
+                    return FooterFacts {
+                        rows: None,
+                        time_bounds: None,
+                        status_everywhere: false,
+                    };
                 };
+                if status {
+                    status = metadata.row_groups.iter().all(|row_group| {
+                        no_nulls(row_group, contract::FORWARDING_STATUS, &metadata.footer_buf)
+                    });
+                }
                 rows = rows.map(|r| r.saturating_add(u64::try_from(metadata.num_rows).unwrap_or(u64::MAX)));
                 if let Some(b) = bounds.as_mut() {
                     if file_time_bounds(&metadata, b).is_none() {
@@ -203,8 +221,50 @@ impl Inputs {
         FooterFacts {
             rows,
             time_bounds: bounds.map(|b| (b.min, b.max)),
+            status_everywhere: status,
         }
     }
+}
+
+/// Whether a group's files carry `forwardingStatus` (unsigned, at most 32
+/// bits), `forwardingOutcome` and `forwardingReason` (texts) themselves,
+/// with no partition column of those names.
+fn group_has_status_columns(group: &Group) -> bool {
+    use contract::{FORWARDING_OUTCOME, FORWARDING_REASON, FORWARDING_STATUS};
+    let partitioned = group.partitions.iter().any(|(key, _)| {
+        key == FORWARDING_STATUS || key == FORWARDING_OUTCOME || key == FORWARDING_REASON
+    });
+    let status = matches!(
+        group.schema.get(FORWARDING_STATUS),
+        Some(DataType::UInt8 | DataType::UInt16 | DataType::UInt32)
+    );
+    let texts = [FORWARDING_OUTCOME, FORWARDING_REASON]
+        .iter()
+        .all(|name| matches!(group.schema.get(name), Some(DataType::String)));
+    !partitioned && status && texts
+}
+
+/// Whether a row group's statistics say that the top-level integer column
+/// `name` has no nulls (false when the column or its statistics are
+/// missing).
+fn no_nulls(
+    row_group: &polars_parquet::parquet::metadata::RowGroupMetadata,
+    name: &str,
+    footer: &[u8],
+) -> bool {
+    use polars_parquet::parquet::statistics::Statistics;
+    let Some(mut chunks) = row_group.columns_under_root_iter(name) else {
+        return false;
+    };
+    let (Some(chunk), None) = (chunks.next(), chunks.next()) else {
+        return false;
+    };
+    let nulls = match chunk.statistics(footer) {
+        Some(Ok(Statistics::Int32(stats))) => stats.null_count,
+        Some(Ok(Statistics::Int64(stats))) => stats.null_count,
+        _ => None,
+    };
+    nulls == Some(0)
 }
 
 /// Running minimum and maximum of record times, in nanoseconds.

@@ -71,6 +71,7 @@ pub mod compare;
 mod contract;
 mod dimension;
 mod error;
+mod fold;
 mod input;
 mod query;
 pub mod render;
@@ -78,6 +79,7 @@ pub mod report;
 mod table;
 
 pub use chrono::{DateTime, Utc};
+pub use contract::forwarding_names;
 pub use dimension::Dimension;
 pub use error::Error;
 pub use input::is_parquet;

@@ -42,6 +42,7 @@ use polars_core::query_result::QueryResult;
 use crate::contract::{self, time_dtype};
 use crate::dimension::{Dimension, DimensionPlan};
 use crate::error::Error;
+use crate::fold;
 use crate::input::Inputs;
 use crate::table::{DropSummary, DropTable, SamplingCoverage, TopGroup};
 
@@ -279,7 +280,7 @@ impl DropQuery {
             time_bounds,
         } = prepared;
         let bucketed = self.every.is_some();
-        let stage1 = collect_streaming(stage1)?;
+        let stage1 = stage1.collect()?;
 
         // Stage 2: merge reasons into groups, naming the top reason.
         let mut out_keys: Vec<String> = Vec::new();
@@ -339,7 +340,7 @@ impl DropQuery {
     /// # Errors
     /// As [`run`](Self::run), short of executing the query.
     pub fn explain(&self) -> Result<String, Error> {
-        Ok(self.prepare(false)?.stage1.describe_optimized_plan()?)
+        self.prepare(false)?.stage1.describe()
     }
 
     /// Validates the query, opens the inputs and builds the lazy stage-1
@@ -372,14 +373,34 @@ impl DropQuery {
             .flat_map(|p| p.companions.iter().cloned())
             .collect();
         // Footers are read when drops has a use for them: the time range
-        // (above), and the row count for the two-level stage 1 (below).
-        let facts = (!with_moments && (unfiltered || !companions.is_empty())).then(|| inputs.footer_facts());
+        // (above), the row count for the two-level stage 1, and whether
+        // every row has a forwardingStatus (below).
+        let facts = (!with_moments).then(|| inputs.footer_facts());
         let time_bounds = match &facts {
             Some(facts) if unfiltered => facts.time_bounds,
             _ => None,
         };
+        // Drops' two-level stage 1 orders companion names by row number,
+        // which must fit polars' index type.
+        let indexable = facts
+            .as_ref()
+            .and_then(|f| f.rows)
+            .is_some_and(|rows| rows < u64::from(IdxSize::MAX));
+        let two_level = !with_moments && (companions.is_empty() || indexable);
+        // Outcome and reason keys from the numeric status, when every row
+        // has one (see `drops_stage1`): the text columns are then not read
+        // unless the filter names them.
+        let by_status = two_level && facts.as_ref().is_some_and(|f| f.status_everywhere);
+        let from_status = |name: &str| {
+            by_status && (name == contract::FORWARDING_REASON || name == contract::FORWARDING_OUTCOME)
+        };
 
         // Which input columns to read, and as which type.
+        let outcome_columns: &[&str] = if by_status {
+            &[contract::FORWARDING_STATUS]
+        } else {
+            &[contract::FORWARDING_OUTCOME, contract::FORWARDING_REASON]
+        };
         let mut wanted: Vec<String> = [
             contract::PACKET_DELTA_COUNT,
             contract::PACKET_TOTAL_COUNT,
@@ -387,17 +408,14 @@ impl DropQuery {
             contract::OCTET_TOTAL_COUNT,
             contract::DROPPED_PACKET_DELTA_COUNT,
             contract::DROPPED_OCTET_DELTA_COUNT,
-            contract::FORWARDING_OUTCOME,
-            contract::FORWARDING_REASON,
-            contract::SAMPLING_RATE,
-            contract::FLOW_END_TIME,
-            contract::EXPORT_TIME,
         ]
         .iter()
+        .chain(outcome_columns)
+        .chain(&[contract::SAMPLING_RATE, contract::FLOW_END_TIME, contract::EXPORT_TIME])
         .map(|s| s.to_string())
         .collect();
         for plan in &plans {
-            wanted.extend(plan.reads.iter().cloned());
+            wanted.extend(plan.reads.iter().filter(|r| !from_status(r)).cloned());
         }
         if let Some((_, expr)) = &filter {
             wanted.extend(expr.clone().meta().root_names().iter().map(|s| s.to_string()));
@@ -464,7 +482,11 @@ impl DropQuery {
         }
         for plan in &plans {
             for (name, expr) in &plan.keys {
-                derived.push(expr.clone().alias(name.as_str()));
+                // Keys named from the status are plain columns: added
+                // after level 1.
+                if !from_status(name) {
+                    derived.push(expr.clone().alias(name.as_str()));
+                }
                 group1.push(name.clone());
             }
         }
@@ -474,22 +496,25 @@ impl DropQuery {
         }
 
         // Stage 1: one row per group and reason (and bucket).
-        // Drops' two-level stage 1 orders companion names by row number,
-        // which must fit polars' index type.
-        let indexable = facts
-            .as_ref()
-            .and_then(|f| f.rows)
-            .is_some_and(|rows| rows < u64::from(IdxSize::MAX));
-        let two_level = !with_moments && (companions.is_empty() || indexable);
         let stage1 = if !two_level {
             let mut aggs = stage1_aggs(with_moments, with_time);
             aggs.extend(companion_aggs(&companions));
-            lf.with_columns(record_measures(record_time, &present))
-                .with_columns(derived)
-                .group_by(group1.iter().map(|s| col(s.as_str())).collect::<Vec<_>>())
-                .agg(aggs)
+            Stage1::Plan(
+                lf.with_columns(record_measures(record_time, &present))
+                    .with_columns(derived)
+                    .group_by(group1.iter().map(|s| col(s.as_str())).collect::<Vec<_>>())
+                    .agg(aggs),
+            )
         } else {
-            drops_stage1(lf, record_time, &present, derived, &group1, &companions)
+            drops_stage1(
+                lf,
+                record_time,
+                &present,
+                derived,
+                &group1,
+                &companions,
+                by_status,
+            )?
         };
         Ok(Prepared {
             stage1,
@@ -561,7 +586,7 @@ impl DropQuery {
     pub(crate) fn stage1_rows(&self) -> Result<Stage1Rows, Error> {
         let prepared = self.prepare(true)?;
         Ok(Stage1Rows {
-            frame: collect_streaming(prepared.stage1)?,
+            frame: prepared.stage1.collect()?,
             plans: prepared.plans,
             reason_is_key: prepared.reason_is_key,
         })
@@ -571,7 +596,7 @@ impl DropQuery {
 /// A query ready to collect.
 struct Prepared {
     /// Records grouped by bucket, dimension keys and reason.
-    stage1: LazyFrame,
+    stage1: Stage1,
     plans: Vec<DimensionPlan>,
     /// Dimension key columns (companions excluded), without the bucket.
     key_names: Vec<String>,
@@ -682,6 +707,7 @@ fn record_measures(record_time: Option<Expr>, present: &dyn Fn(&str) -> bool) ->
 
 // Working columns of the two-level drops stage 1.
 const G_DROP: &str = "_fs_g_drop";
+const G_STATUS: &str = "_fs_g_status";
 const G_RATE: &str = "_fs_g_rate";
 const G_T: &str = "_fs_g_t";
 const G_TD: &str = "_fs_g_td";
@@ -692,6 +718,81 @@ const G_DO: &str = "_fs_g_do";
 const G_ROW: &str = "_fs_g_row";
 /// Prefix of the first row number with a non-null companion.
 const G_AT: &str = "_fs_g_at_";
+
+/// Stage 1 of a query, ready to run.
+enum Stage1 {
+    /// One polars plan (`compare`, and drops where the two levels do not
+    /// apply).
+    Plan(LazyFrame),
+    /// Drops' two levels (see [`drops_stage1`]).
+    TwoLevel(TwoLevel),
+}
+
+/// How drops' level 1 runs.
+enum Level1 {
+    /// A polars group-by.
+    Polars(LazyFrame),
+    /// [`fold`] over the scan's batches (fixed-width keys only).
+    Fold(LazyFrame, fold::Spec),
+}
+
+/// Drops' two-level stage 1.
+struct TwoLevel {
+    level1: Level1,
+    /// Whether level 1 grouped on `forwardingStatus` ([`G_STATUS`]) instead
+    /// of the outcome flag and the text keys in `from_status`.
+    by_status: bool,
+    /// Keys of `group1` computed from the status after level 1.
+    from_status: Vec<String>,
+    level2: Level2,
+}
+
+/// What level 2 needs to know about level 1's columns.
+struct Level2 {
+    group1: Vec<String>,
+    companions: Vec<String>,
+    /// Which of (Σt, Σcoalesce(t, d), Σd) level 1 has, packets and octets.
+    have_p: [bool; 3],
+    have_o: [bool; 3],
+    has_outcome: bool,
+    has_rate: bool,
+    with_time: bool,
+    ordered: bool,
+}
+
+impl Stage1 {
+    /// Runs the stage.
+    fn collect(self) -> Result<DataFrame, Error> {
+        match self {
+            Stage1::Plan(plan) => collect_streaming(plan),
+            Stage1::TwoLevel(two) => {
+                let level1 = match two.level1 {
+                    Level1::Polars(plan) => collect_streaming(plan)?,
+                    Level1::Fold(scan, spec) => fold::fold(scan, spec)?,
+                };
+                let level1 = if two.by_status {
+                    with_status_names(level1, &two.from_status)?
+                } else {
+                    level1
+                };
+                Ok(level2(level1.lazy(), &two.level2).collect()?)
+            }
+        }
+    }
+
+    /// The optimized polars plan of the part that reads the Parquet files.
+    fn describe(&self) -> Result<String, Error> {
+        Ok(match self {
+            Stage1::Plan(plan) | Stage1::TwoLevel(TwoLevel { level1: Level1::Polars(plan), .. }) => {
+                plan.describe_optimized_plan()?
+            }
+            Stage1::TwoLevel(TwoLevel { level1: Level1::Fold(scan, _), .. }) => format!(
+                "{}\nthen summed by fixed-width keys in one ordered pass",
+                scan.describe_optimized_plan()?
+            ),
+        })
+    }
+}
 
 /// Drops' stage 1, the same rows as [`record_measures`] summed by
 /// [`stage1_aggs`] (without moments), in two levels.
@@ -708,6 +809,17 @@ const G_AT: &str = "_fs_g_at_";
 /// `N(N−1)·k` record by record: the same while the figures stay below
 /// 2⁵³, and at most a rounding apart beyond.
 ///
+/// With `by_status` (every input row has a `forwardingStatus` and the
+/// texts derived from it, see [`crate::input::FooterFacts`]), level 1 groups
+/// on the numeric status instead of the outcome flag and the
+/// `forwardingReason`/`forwardingOutcome` keys, which are then named from
+/// the status on the few level-1 rows ([`contract::forwarding_names`]);
+/// level 2 merges statuses of the same name. The text columns are not read.
+///
+/// When every level-1 key is an unsigned integer or a boolean, level 1 is
+/// [`fold`]ed in one ordered pass instead of a polars group-by; the rows are
+/// the same.
+///
 /// A companion (an interface name beside its id) is the first non-null
 /// value in input order; level 1 keeps, beside each group's first, the row
 /// number where it was seen, and level 2 takes the earliest. Row numbers
@@ -719,45 +831,55 @@ fn drops_stage1(
     derived: Vec<Expr>,
     group1: &[String],
     companions: &[String],
-) -> LazyFrame {
+    by_status: bool,
+) -> Result<Stage1, Error> {
     use contract::*;
     let u64c = |name: &str| present(name).then(|| col(name).cast(DataType::UInt64));
     let with_time = record_time.is_some();
-    let mut lf = lf;
-    let split = present(FORWARDING_OUTCOME) || present(SAMPLING_RATE);
+    let from_status: Vec<String> = group1
+        .iter()
+        .filter(|k| by_status && (*k == FORWARDING_REASON || *k == FORWARDING_OUTCOME))
+        .cloned()
+        .collect();
+    let has_outcome = by_status || present(FORWARDING_OUTCOME);
+    let has_rate = present(SAMPLING_RATE);
+    let split = has_outcome || has_rate;
     let ordered = split && !companions.is_empty();
-    if ordered {
-        lf = lf.with_row_index(G_ROW, None);
-    }
+    let mut lf = lf;
     if let Some(record_time) = record_time {
         lf = lf.with_column(record_time.alias(W_TIME));
     }
     let mut lf = lf.with_columns(derived);
-    let mut keys: Vec<Expr> = group1.iter().map(|s| col(s.as_str())).collect();
+    let mut keys: Vec<String> = group1
+        .iter()
+        .filter(|k| !from_status.contains(k))
+        .cloned()
+        .collect();
     let mut flags: Vec<Expr> = Vec::new();
-    let has_outcome = present(FORWARDING_OUTCOME);
-    if has_outcome {
+    if by_status {
+        flags.push(col(FORWARDING_STATUS).cast(DataType::UInt32).alias(G_STATUS));
+        keys.push(G_STATUS.to_string());
+    } else if has_outcome {
         flags.push(
             col(FORWARDING_OUTCOME)
                 .eq(lit(OUTCOME_DROPPED))
                 .fill_null(lit(false))
                 .alias(G_DROP),
         );
-        keys.push(col(G_DROP));
+        keys.push(G_DROP.to_string());
     }
-    let has_rate = present(SAMPLING_RATE);
     if has_rate {
         flags.push(col(SAMPLING_RATE).alias(G_RATE));
-        keys.push(col(G_RATE));
+        keys.push(G_RATE.to_string());
     }
     if !flags.is_empty() {
         lf = lf.with_columns(flags);
     }
 
-    // Level 1: raw sums per group, rate and outcome flag.
-    let mut aggs: Vec<Expr> = vec![len().cast(DataType::UInt64).alias(FLOW_RECORDS)];
+    // Level 1: raw sums per group, rate and outcome flag (or status).
     // Which sums exist: (Σt, Σcoalesce(t, d), Σd) for packets and octets.
-    let mut sums = |delta: &str, total: &str, dropped: &str, names: [&'static str; 3]| {
+    let mut sums: Vec<(&'static str, Expr)> = Vec::new();
+    let mut counts = |delta: &str, total: &str, dropped: &str, names: [&'static str; 3]| {
         let t = match (u64c(delta), u64c(total)) {
             (Some(a), Some(b)) => Some(coalesce(&[a, b])),
             (a, b) => a.or(b),
@@ -771,7 +893,7 @@ fn drops_stage1(
         let mut have = [false; 3];
         for (i, (expr, name)) in [(t, nt), (td, ntd), (d, nd)].into_iter().enumerate() {
             if let Some(expr) = expr {
-                aggs.push(expr.sum().alias(name));
+                sums.push((name, expr));
                 if let Some(h) = have.get_mut(i) {
                     *h = true;
                 }
@@ -779,39 +901,115 @@ fn drops_stage1(
         }
         have
     };
-    let have_p = sums(
+    let have_p = counts(
         PACKET_DELTA_COUNT,
         PACKET_TOTAL_COUNT,
         DROPPED_PACKET_DELTA_COUNT,
         [G_T, G_TD, G_D],
     );
-    let have_o = sums(
+    let have_o = counts(
         OCTET_DELTA_COUNT,
         OCTET_TOTAL_COUNT,
         DROPPED_OCTET_DELTA_COUNT,
         [G_TO, G_TDO, G_DO],
     );
-    if with_time {
-        aggs.push(col(W_TIME).min().alias(A_FIRST));
-        aggs.push(col(W_TIME).max().alias(A_LAST));
-    }
-    aggs.extend(companion_aggs(companions));
-    if ordered {
-        for (i, c) in companions.iter().enumerate() {
-            aggs.push(
-                when(col(c.as_str()).is_not_null())
-                    .then(col(G_ROW))
-                    .otherwise(lit(NULL))
-                    .min()
-                    .alias(format!("{G_AT}{i}")),
-            );
-        }
-    }
-    let level1 = lf.group_by(keys).agg(aggs);
+    let at_names: Vec<String> = (0..companions.len()).map(|i| format!("{G_AT}{i}")).collect();
 
-    // Per level-1 row: N, the counts k and t, and the scaled measures.
+    let schema = lf.clone().collect_schema()?;
+    let spec = fold::Spec::new(
+        &schema,
+        &keys,
+        sums.iter().map(|(name, _)| name.to_string()).collect(),
+        with_time.then(|| (W_TIME.to_string(), A_FIRST.to_string(), A_LAST.to_string())),
+        companions,
+        ordered.then(|| at_names.clone()),
+        FLOW_RECORDS,
+    );
+    let level1 = match spec {
+        Some(spec) => {
+            let mut columns: Vec<Expr> = keys.iter().map(|k| col(k.as_str())).collect();
+            columns.extend(sums.into_iter().map(|(name, expr)| expr.alias(name)));
+            if with_time {
+                columns.push(col(W_TIME));
+            }
+            columns.extend(companions.iter().map(|c| col(c.as_str())));
+            Level1::Fold(lf.select(columns), spec)
+        }
+        None => {
+            let mut aggs: Vec<Expr> = vec![len().cast(DataType::UInt64).alias(FLOW_RECORDS)];
+            aggs.extend(sums.into_iter().map(|(name, expr)| expr.sum().alias(name)));
+            if with_time {
+                aggs.push(col(W_TIME).min().alias(A_FIRST));
+                aggs.push(col(W_TIME).max().alias(A_LAST));
+            }
+            aggs.extend(companion_aggs(companions));
+            if ordered {
+                lf = lf.with_row_index(G_ROW, None);
+                for (c, at) in companions.iter().zip(&at_names) {
+                    aggs.push(
+                        when(col(c.as_str()).is_not_null())
+                            .then(col(G_ROW))
+                            .otherwise(lit(NULL))
+                            .min()
+                            .alias(at.as_str()),
+                    );
+                }
+            }
+            Level1::Polars(
+                lf.group_by(keys.iter().map(|s| col(s.as_str())).collect::<Vec<_>>())
+                    .agg(aggs),
+            )
+        }
+    };
+    Ok(Stage1::TwoLevel(TwoLevel {
+        level1,
+        by_status,
+        from_status,
+        level2: Level2 {
+            group1: group1.to_vec(),
+            companions: companions.to_vec(),
+            have_p,
+            have_o,
+            has_outcome,
+            has_rate,
+            with_time,
+            ordered,
+        },
+    }))
+}
+
+/// Level-1 rows grouped on the status get the outcome flag and the
+/// `forwardingReason`/`forwardingOutcome` keys named from it, as `flowsift
+/// convert` derives them; the status column goes.
+fn with_status_names(level1: DataFrame, from_status: &[String]) -> Result<DataFrame, Error> {
+    let status = level1.column(G_STATUS)?.cast(&DataType::UInt32)?;
+    let names: Vec<Option<(&str, Option<&str>)>> = status
+        .u32()?
+        .iter()
+        .map(|s| s.map(contract::forwarding_names))
+        .collect();
+    let dropped: Vec<bool> = names
+        .iter()
+        .map(|n| matches!(n, Some((outcome, _)) if *outcome == contract::OUTCOME_DROPPED))
+        .collect();
+    let mut frame = level1.drop(G_STATUS)?;
+    frame.with_column(Column::new(G_DROP.into(), dropped))?;
+    for key in from_status {
+        let texts: Vec<Option<&str>> = if key == contract::FORWARDING_OUTCOME {
+            names.iter().map(|n| n.map(|(outcome, _)| outcome)).collect()
+        } else {
+            names.iter().map(|n| n.and_then(|(_, reason)| reason)).collect()
+        };
+        frame.with_column(Column::new(key.as_str().into(), texts))?;
+    }
+    Ok(frame)
+}
+
+/// Level 2: N and the choice of count applied to each level-1 row, then
+/// the rows summed into `group1` groups.
+fn level2(level1: LazyFrame, l2: &Level2) -> LazyFrame {
     let u64_0 = || lit(0u64);
-    let (known, n) = if has_rate {
+    let (known, n) = if l2.has_rate {
         let rate = col(G_RATE).cast(DataType::UInt64);
         let known = rate.clone().gt(u64_0()).fill_null(lit(false));
         (known.clone(), when(known).then(rate).otherwise(lit(1u64)))
@@ -832,15 +1030,15 @@ fn drops_stage1(
         } else {
             sum(2)
         };
-        let k = if has_outcome {
+        let k = if l2.has_outcome {
             when(col(G_DROP)).then(whole).otherwise(sum(2))
         } else {
             sum(2)
         };
         (sum(0), k)
     };
-    let (tp, kp) = counts(have_p, [G_T, G_TD, G_D]);
-    let (to, ko) = counts(have_o, [G_TO, G_TDO, G_DO]);
+    let (tp, kp) = counts(l2.have_p, [G_T, G_TD, G_D]);
+    let (to, ko) = counts(l2.have_o, [G_TO, G_TDO, G_DO]);
     let nf = n.clone().cast(DataType::Float64);
     let measures = vec![
         n.clone().alias(W_N),
@@ -856,7 +1054,6 @@ fn drops_stage1(
             .alias(W_KNOWN),
     ];
 
-    // Level 2: the level-1 rows summed into `group1` groups.
     let mut aggs = vec![
         col(W_DP).sum().alias(DROPPED_PACKETS),
         col(W_DO).sum().alias(DROPPED_OCTETS),
@@ -868,22 +1065,22 @@ fn drops_stage1(
         col(W_KNOWN).sum().alias(W_KNOWN),
         col(W_N).max().alias(A_MAX_RATE),
     ];
-    if with_time {
+    if l2.with_time {
         aggs.push(col(A_FIRST).min().alias(A_FIRST));
         aggs.push(col(A_LAST).max().alias(A_LAST));
     }
-    if ordered {
-        aggs.extend(companion_aggs_in_order(companions));
-        for i in 0..companions.len() {
+    if l2.ordered {
+        aggs.extend(companion_aggs_in_order(&l2.companions));
+        for i in 0..l2.companions.len() {
             let at = format!("{G_AT}{i}");
             aggs.push(col(at.as_str()).min().alias(at.as_str()));
         }
     } else {
-        aggs.extend(companion_aggs(companions));
+        aggs.extend(companion_aggs(&l2.companions));
     }
     level1
         .with_columns(measures)
-        .group_by(group1.iter().map(|s| col(s.as_str())).collect::<Vec<_>>())
+        .group_by(l2.group1.iter().map(|s| col(s.as_str())).collect::<Vec<_>>())
         .agg(aggs)
 }
 

@@ -2,7 +2,6 @@
 
 use std::any::Any;
 use std::fmt::Write as _;
-use std::slice::ChunksExact;
 use std::sync::Arc;
 
 use arrow::array::{
@@ -667,8 +666,14 @@ fn append_scalar_list(l: &mut ListBuilder<Scalar>, raw: &[u8], stats: &mut Colum
         return false;
     }
     let items = l.values();
-    for element in list.elements.chunks_exact(len) {
-        items.append_raw(list.decode, element, stats);
+    match items {
+        // Addresses as sent: the elements are the items' octets already.
+        Scalar::Fsb(b) => b.append_packed(list.elements),
+        items => {
+            for element in list.elements.chunks_exact(len) {
+                items.append_raw(list.decode, element, stats);
+            }
+        }
     }
     l.append(true);
     true
@@ -805,6 +810,41 @@ pub struct TableBuilder {
     #[cfg(test)]
     pub(crate) row_path: bool,
 }
+
+/// The records of a fixed-layout set: `left` slices of `stride` octets.
+///
+/// Like `chunks_exact`, but its length is kept rather than computed: the
+/// standard iterator divides by the stride whenever its length is asked
+/// (each `zip`, `extend` and `len`), which costs more than converting a
+/// column of a small set.
+#[derive(Debug, Clone)]
+struct Rows<'a> {
+    rest: &'a [u8],
+    stride: usize,
+    left: usize,
+}
+
+impl<'a> Iterator for Rows<'a> {
+    type Item = &'a [u8];
+
+    #[inline]
+    fn next(&mut self) -> Option<&'a [u8]> {
+        if self.left == 0 {
+            return None;
+        }
+        let (r, rest) = self.rest.split_at_checked(self.stride)?;
+        self.rest = rest;
+        self.left -= 1;
+        Some(r)
+    }
+
+    #[inline]
+    fn size_hint(&self) -> (usize, Option<usize>) {
+        (self.left, Some(self.left))
+    }
+}
+
+impl ExactSizeIterator for Rows<'_> {}
 
 /// Rows reserved past the capacity: callers finish a batch once it reaches
 /// the capacity, which the last set usually passes by a few records; the
@@ -1072,14 +1112,14 @@ impl TableBuilder {
     }
 
     /// The records of a set whose plan has a fixed layout, as equal chunks.
-    fn fixed_records<'s>(&self, map: &PlanMap, set: &'s DataSet<'_>) -> Option<ChunksExact<'s, u8>> {
+    fn fixed_records<'s>(&self, map: &PlanMap, set: &'s DataSet<'_>) -> Option<Rows<'s>> {
         if self.row_path() {
             return None;
         }
         map.layout.as_ref()?;
         let len = set.plan().fixed_len().filter(|l| *l > 0)?;
         let body = set.bytes().get(..set.len().checked_mul(len)?)?;
-        Some(body.chunks_exact(len))
+        Some(Rows { rest: body, stride: len, left: set.len() })
     }
 
     /// Appends the fields at `spans` (the plan's first fields, each at a
@@ -1117,7 +1157,7 @@ impl TableBuilder {
         &mut self,
         map: &PlanMap,
         set: &DataSet<'_>,
-        records: ChunksExact<'_, u8>,
+        records: Rows<'_>,
         ctx: &SetContext<'_>,
         groups: u8,
     ) -> usize {
@@ -1192,15 +1232,22 @@ impl TableBuilder {
     fn append_record(&mut self, map: &PlanMap, record: &Record<'_>, ctx: &SetContext<'_>, groups: u8, skip: usize) {
         let data = record.bytes();
         let fields = record.plan().fields();
+        // Spans are kept for the derived columns only.
+        let derived = self.fixed.derived.is_some() && groups != 0;
         self.spans.clear();
         // The first `skip` fields sit at the fixed offsets of `map.prefix`.
         let lead = map.prefix.get(..skip).unwrap_or_default();
-        self.spans.extend(lead.iter().map(|&(s, e)| (e <= data.len()).then_some((s, e))));
         let mut pos = lead.last().map_or(0, |&(_, e)| e);
-        let mut ok = self.spans.iter().all(Option::is_some);
-        for (i, (slot, field)) in map.slots.iter().zip(fields).enumerate().skip(lead.len()) {
+        let mut ok = pos <= data.len();
+        if derived {
+            self.spans.extend(lead.iter().map(|&(s, e)| (e <= data.len()).then_some((s, e))));
+        }
+        let rest = map.slots.iter().zip(fields).skip(lead.len());
+        for (i, (slot, field)) in (lead.len()..).zip(rest) {
             let span = if ok { field_span(data, pos, &field.spec) } else { None };
-            self.spans.push(span);
+            if derived {
+                self.spans.push(span);
+            }
             let raw = span.and_then(|(s, e)| {
                 pos = e;
                 data.get(s..e)
@@ -1208,7 +1255,7 @@ impl TableBuilder {
             ok &= raw.is_some();
             self.put(map, record, i, *slot, field.length_mismatch, raw);
         }
-        let Some(base) = self.fixed.derived.filter(|_| groups != 0) else { return };
+        let Some(base) = self.fixed.derived.filter(|_| derived) else { return };
         let spans = std::mem::take(&mut self.spans);
         let raw = |i: usize| spans.get(i).copied().flatten().and_then(|(s, e)| data.get(s..e));
         let row = map.derived.compute(groups, raw, ctx, &mut self.labels, &mut self.stats);

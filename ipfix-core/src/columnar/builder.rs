@@ -679,6 +679,23 @@ fn append_scalar_list(l: &mut ListBuilder<Scalar>, raw: &[u8], stats: &mut Colum
     true
 }
 
+/// The derived groups [`TableBuilder::append_fixed_set`] computes a column
+/// at a time from the record octets alone (no set context).
+fn column_groups(map: &PlanMap) -> u8 {
+    let absolute = |t: Option<TimeSource>| matches!(t, Some(TimeSource::Absolute(..)));
+    let mut g = group::MPLS;
+    if map.derived.fwd.is_some() {
+        g |= group::FWD;
+    }
+    if absolute(map.derived.start) {
+        g |= group::START;
+    }
+    if absolute(map.derived.end) {
+        g |= group::END;
+    }
+    g
+}
+
 /// Appends one struct item per record (see
 /// [`record_struct_type`](super::record_struct_type)).
 fn append_records(
@@ -805,6 +822,8 @@ pub struct TableBuilder {
     text: String,
     /// The exporter whose address `text` holds.
     text_of: Option<std::net::IpAddr>,
+    /// Records of fixed-layout sets waiting to be appended a column at a time.
+    stage: Stage,
     /// Tests only: append every set record by record, field by field, to
     /// compare the column paths with it.
     #[cfg(test)]
@@ -845,6 +864,23 @@ impl<'a> Iterator for Rows<'a> {
 }
 
 impl ExactSizeIterator for Rows<'_> {}
+
+/// The records of consecutive fixed-layout sets of one plan, gathered so
+/// their columns are converted in long runs: sets over UDP hold a dozen or
+/// two records, and converting a column has a cost per run as well as per
+/// value. Only the element columns (and the derived ones computed from them
+/// alone) wait here; the provenance and constant columns of each set are
+/// appended at once, so every column still receives the sets in order.
+#[derive(Debug, Default)]
+struct Stage {
+    /// The plan, its mapping and the derived groups of the waiting records.
+    of: Option<(Arc<Plan>, Arc<PlanMap>, u8)>,
+    bytes: Vec<u8>,
+    rows: usize,
+}
+
+/// Records gathered before their columns are converted.
+const STAGE_ROWS: usize = 1024;
 
 /// Rows reserved past the capacity: callers finish a batch once it reaches
 /// the capacity, which the last set usually passes by a few records; the
@@ -894,6 +930,7 @@ impl TableBuilder {
             labels: Vec::new(),
             text: String::new(),
             text_of: None,
+            stage: Stage::default(),
             #[cfg(test)]
             row_path: false,
         }
@@ -1030,8 +1067,13 @@ impl TableBuilder {
         };
 
         let n = match self.fixed_records(&map, set) {
-            Some(records) => self.append_fixed_set(&map, set, records, &ctx, groups),
+            Some(records) if groups & !column_groups(&map) == 0 => self.stage_set(set.plan(), &map, groups, records),
+            Some(records) => {
+                self.flush_stage();
+                self.append_fixed_set(&map, set.plan(), records, Some(&ctx), groups)
+            }
             None => {
+                self.flush_stage();
                 let skip = if self.row_path() { 0 } else { map.prefix.len() };
                 if skip == 0 {
                     let mut n = 0usize;
@@ -1153,17 +1195,47 @@ impl TableBuilder {
     }
 
     /// Appends a fixed-layout set column by column; returns the rows.
+    /// Gathers a fixed-layout set's records (flushing those of another plan
+    /// first); returns the rows.
+    fn stage_set(&mut self, plan: &Arc<Plan>, map: &Arc<PlanMap>, groups: u8, records: Rows<'_>) -> usize {
+        let same = self.stage.of.as_ref().is_some_and(|(p, _, g)| Arc::ptr_eq(p, plan) && *g == groups);
+        if !same {
+            self.flush_stage();
+            self.stage.of = Some((plan.clone(), map.clone(), groups));
+        }
+        let n = records.len();
+        self.stage.bytes.extend_from_slice(records.rest);
+        self.stage.rows += n;
+        if self.stage.rows >= STAGE_ROWS {
+            self.flush_stage();
+        }
+        n
+    }
+
+    /// Appends the gathered records' columns.
+    fn flush_stage(&mut self) {
+        let Some((plan, map, groups)) = self.stage.of.take() else { return };
+        let bytes = std::mem::take(&mut self.stage.bytes);
+        let rows = std::mem::take(&mut self.stage.rows);
+        if let Some(stride) = plan.fixed_len().filter(|l| *l > 0 && rows.checked_mul(*l) == Some(bytes.len())) {
+            self.append_fixed_set(&map, &plan, Rows { rest: &bytes, stride, left: rows }, None, groups);
+        }
+        // Keep the buffer for the next records.
+        self.stage.bytes = bytes;
+        self.stage.bytes.clear();
+    }
+
     fn append_fixed_set(
         &mut self,
         map: &PlanMap,
-        set: &DataSet<'_>,
+        plan: &Plan,
         records: Rows<'_>,
-        ctx: &SetContext<'_>,
+        ctx: Option<&SetContext<'_>>,
         groups: u8,
     ) -> usize {
         let n = records.len();
         let Some(layout) = map.layout.as_deref() else { return 0 };
-        self.append_field_columns(map, set.plan(), layout, records.clone());
+        self.append_field_columns(map, plan, layout, records.clone());
         let Some(base) = self.fixed.derived.filter(|_| groups != 0) else { return n };
         let mut groups = groups;
         if let Some((_, end)) = map.derived.fwd.and_then(|i| layout.get(i)).filter(|_| groups & group::FWD != 0) {
@@ -1217,12 +1289,16 @@ impl TableBuilder {
             }
             groups &= !g;
         }
-        if groups != 0 {
-            for data in records {
-                let raw = |i: usize| layout.get(i).and_then(|(s, e)| data.get(*s..*e));
-                let row = map.derived.compute(groups, raw, ctx, &mut self.labels, &mut self.stats);
-                self.append_derived(base, &row, groups);
+        match ctx {
+            Some(ctx) if groups != 0 => {
+                for data in records {
+                    let raw = |i: usize| layout.get(i).and_then(|(s, e)| data.get(*s..*e));
+                    let row = map.derived.compute(groups, raw, ctx, &mut self.labels, &mut self.stats);
+                    self.append_derived(base, &row, groups);
+                }
             }
+            // Staged sets need no context: only column groups are left.
+            _ => debug_assert_eq!(groups, 0, "staged sets have column groups only"),
         }
         n
     }
@@ -1377,6 +1453,7 @@ impl TableBuilder {
     /// Finishes the rows appended so far into a batch and starts afresh
     /// (the schema and plan cache are kept).
     pub fn finish(&mut self) -> Result<RecordBatch, ColumnarError> {
+        self.flush_stage();
         debug_assert!(self.columns_in_step(), "every column holds one value per row");
         for col in &mut self.columns {
             let text = match col {
@@ -1407,7 +1484,8 @@ impl TableBuilder {
 
     /// True when every column holds [`len`](Self::len) values (a check for
     /// tests and debug assertions).
-    pub(crate) fn columns_in_step(&self) -> bool {
+    pub(crate) fn columns_in_step(&mut self) -> bool {
+        self.flush_stage();
         self.columns.iter().all(|c| c.len() == self.rows)
     }
 }

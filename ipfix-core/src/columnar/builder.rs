@@ -1318,7 +1318,7 @@ impl TableBuilder {
         if derived {
             self.spans.extend(lead.iter().map(|&(s, e)| (e <= data.len()).then_some((s, e))));
         }
-        let rest = map.slots.iter().zip(fields).skip(lead.len());
+        let rest = map.slots.get(lead.len()..).unwrap_or_default().iter().zip(fields.get(lead.len()..).unwrap_or_default());
         for (i, (slot, field)) in (lead.len()..).zip(rest) {
             let span = if ok { field_span(data, pos, &field.spec) } else { None };
             if derived {

@@ -37,7 +37,8 @@ use crate::error::Error;
 /// | `domain` | observation domain | `observationDomainId` |
 ///
 /// Interfaces and VRFs are grouped by id; the name shown beside is the
-/// first non-null name seen for that id.
+/// first non-null name seen for that id, in input order among the records
+/// the query keeps, the same in every row that shows the id.
 #[derive(Debug, Clone, PartialEq, Eq, Hash)]
 #[non_exhaustive]
 pub enum Dimension {
@@ -106,8 +107,9 @@ pub(crate) struct DimensionPlan {
     pub heading: String,
     /// Output columns grouped on, with the expressions that compute them.
     pub keys: Vec<(String, Expr)>,
-    /// Output columns carried along (first non-null per group), not
-    /// grouped on.
+    /// Output columns shown beside the first key, not grouped on: the
+    /// first non-null per id (drops looks them up for the groups it shows;
+    /// `compare` carries them, first non-null per group).
     pub companions: Vec<String>,
     /// Input columns read.
     pub reads: Vec<String>,

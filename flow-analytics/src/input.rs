@@ -161,8 +161,6 @@ impl Inputs {
 
 /// What the inputs' footers tell without reading any rows.
 pub(crate) struct FooterFacts {
-    /// Rows in all inputs; `None` when a footer cannot be read.
-    pub rows: Option<u64>,
     /// The earliest and latest record time (`flowEndTime`, else
     /// `exportTime`) over every row, in nanoseconds since 1970, when the
     /// statistics tell it exactly; `None` when they cannot (statistics
@@ -183,7 +181,6 @@ pub(crate) struct FooterFacts {
 impl Inputs {
     /// Reads every input's footer once for [`FooterFacts`].
     pub(crate) fn footer_facts(&self) -> FooterFacts {
-        let mut rows: Option<u64> = Some(0);
         let mut bounds = Some(TimeBounds::default());
         let mut status = true;
         for group in &self.groups {
@@ -200,7 +197,6 @@ impl Inputs {
                     .and_then(|mut file| polars_parquet::parquet::read::read_metadata(&mut file).ok());
                 let Some(metadata) = metadata else {
                     return FooterFacts {
-                        rows: None,
                         time_bounds: None,
                         status_everywhere: false,
                     };
@@ -210,7 +206,6 @@ impl Inputs {
                         no_nulls(row_group, contract::FORWARDING_STATUS, &metadata.footer_buf)
                     });
                 }
-                rows = rows.map(|r| r.saturating_add(u64::try_from(metadata.num_rows).unwrap_or(u64::MAX)));
                 if let Some(b) = bounds.as_mut() {
                     if file_time_bounds(&metadata, b).is_none() {
                         bounds = None;
@@ -219,7 +214,6 @@ impl Inputs {
             }
         }
         FooterFacts {
-            rows,
             time_bounds: bounds.map(|b| (b.min, b.max)),
             status_everywhere: status,
         }

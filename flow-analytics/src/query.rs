@@ -33,6 +33,7 @@
 
 use std::path::PathBuf;
 use std::str::FromStr;
+use std::sync::{Arc, Mutex};
 use std::time::Duration as StdDuration;
 
 use chrono::{DateTime, Utc};
@@ -276,6 +277,7 @@ impl DropQuery {
             plans,
             key_names,
             companions,
+            names,
             reason_is_key,
             time_bounds,
         } = prepared;
@@ -300,14 +302,27 @@ impl DropQuery {
         } else {
             Some(table.clone())
         };
-        let top = match &headline_groups {
+        let groups = table.height();
+        let table = keep_top(table, self.top, bucketed)?;
+        // The headline needs the first group only.
+        let headline = headline_groups.map(|g| g.head(Some(1)));
+        let (table, headline) = match names {
+            Some(names) => {
+                let mut frames = vec![table];
+                frames.extend(headline);
+                let mut frames = names.name(frames)?.into_iter();
+                match frames.next() {
+                    Some(table) => (table, frames.next()),
+                    None => return Err(PolarsError::NoData("no groups".into()).into()),
+                }
+            }
+            None => (table, headline),
+        };
+        let top = match &headline {
             Some(groups) if groups.height() > 0 => Some(top_group(groups, &plans, reason_is_key)?),
             _ => None,
         };
         let summary = summarize(&totals, top, time_bounds)?;
-
-        let groups = table.height();
-        let table = keep_top(table, self.top, bucketed)?;
         let mut order: Vec<String> = Vec::new();
         for key in &out_keys {
             order.push(key.clone());
@@ -372,21 +387,21 @@ impl DropQuery {
             .iter()
             .flat_map(|p| p.companions.iter().cloned())
             .collect();
+        // Drops names the ids that survive `top` afterwards (`NameScan`);
+        // compare carries the names through stage 1.
+        let carried: Vec<String> = if with_moments {
+            companions.clone()
+        } else {
+            Vec::new()
+        };
         // Footers are read when drops has a use for them: the time range
-        // (above), the row count for the two-level stage 1, and whether
-        // every row has a forwardingStatus (below).
+        // (above) and whether every row has a forwardingStatus (below).
         let facts = (!with_moments).then(|| inputs.footer_facts());
         let time_bounds = match &facts {
             Some(facts) if unfiltered => facts.time_bounds,
             _ => None,
         };
-        // Drops' two-level stage 1 orders companion names by row number,
-        // which must fit polars' index type.
-        let indexable = facts
-            .as_ref()
-            .and_then(|f| f.rows)
-            .is_some_and(|rows| rows < u64::from(IdxSize::MAX));
-        let two_level = !with_moments && (companions.is_empty() || indexable);
+        let two_level = !with_moments;
         // Outcome and reason keys from the numeric status, when every row
         // has one (see `drops_stage1`): the text columns are then not read
         // unless the filter names them.
@@ -414,25 +429,42 @@ impl DropQuery {
         .chain(&[contract::SAMPLING_RATE, contract::FLOW_END_TIME, contract::EXPORT_TIME])
         .map(|s| s.to_string())
         .collect();
+        let looked_up = |name: &str| !with_moments && companions.iter().any(|c| c == name);
         for plan in &plans {
-            wanted.extend(plan.reads.iter().filter(|r| !from_status(r)).cloned());
+            wanted.extend(
+                plan.reads
+                    .iter()
+                    .filter(|r| !from_status(r) && !looked_up(r))
+                    .cloned(),
+            );
         }
-        if let Some((_, expr)) = &filter {
-            wanted.extend(expr.clone().meta().root_names().iter().map(|s| s.to_string()));
-        }
-        let mut columns: Vec<(String, DataType)> = Vec::new();
-        for name in wanted {
-            if columns.iter().any(|(seen, _)| *seen == name) {
-                continue;
+        let filter_columns: Vec<String> = match &filter {
+            Some((_, expr)) => expr
+                .clone()
+                .meta()
+                .root_names()
+                .iter()
+                .map(|s| s.to_string())
+                .collect(),
+            None => Vec::new(),
+        };
+        wanted.extend(filter_columns.iter().cloned());
+        let typed = |wanted: Vec<String>| -> Result<Vec<(String, DataType)>, Error> {
+            let mut columns: Vec<(String, DataType)> = Vec::new();
+            for name in wanted {
+                if columns.iter().any(|(seen, _)| *seen == name) {
+                    continue;
+                }
+                let dtype = match (inputs.dtype(&name), contract::dtype_of(&name)) {
+                    (Some(dtype), _) => dtype.clone(),
+                    (None, Some(dtype)) => dtype,
+                    (None, None) => return Err(Error::UnknownColumn { name }),
+                };
+                columns.push((name, dtype));
             }
-            let dtype = match (inputs.dtype(&name), contract::dtype_of(&name)) {
-                (Some(dtype), _) => dtype.clone(),
-                (None, Some(dtype)) => dtype,
-                (None, None) => return Err(Error::UnknownColumn { name }),
-            };
-            columns.push((name, dtype));
-        }
-        let mut lf = inputs.frame(&columns)?;
+            Ok(columns)
+        };
+        let mut lf = inputs.frame(&typed(wanted)?)?;
 
         // Filters first, on input columns only, so polars can push them
         // into the scan.
@@ -440,6 +472,7 @@ impl DropQuery {
             col(contract::FLOW_END_TIME).cast(time_dtype()),
             col(contract::EXPORT_TIME).cast(time_dtype()),
         ]);
+        let mut predicates: Vec<Expr> = Vec::new();
         if let Some((text, expr)) = filter {
             let dtype = lf
                 .clone()
@@ -458,14 +491,44 @@ impl DropQuery {
                     dtype: dtype.to_string(),
                 });
             }
-            lf = lf.filter(expr);
+            predicates.push(expr);
         }
         if let Some(from) = from_ns {
-            lf = lf.filter(record_time.clone().gt_eq(lit(from).cast(time_dtype())));
+            predicates.push(record_time.clone().gt_eq(lit(from).cast(time_dtype())));
         }
         if let Some(to) = to_ns {
-            lf = lf.filter(record_time.clone().lt(lit(to).cast(time_dtype())));
+            predicates.push(record_time.clone().lt(lit(to).cast(time_dtype())));
         }
+        for predicate in &predicates {
+            lf = lf.filter(predicate.clone());
+        }
+
+        // Drops' names: the ids and names, and the columns the filters
+        // read, filtered alike.
+        let names = if with_moments || companions.is_empty() {
+            None
+        } else {
+            let mut pairs: Vec<(String, String)> = Vec::new();
+            for plan in &plans {
+                if let (Some((id, _)), Some(name)) = (plan.keys.first(), plan.companions.first()) {
+                    pairs.push((id.clone(), name.clone()));
+                }
+            }
+            let mut wanted: Vec<String> = pairs
+                .iter()
+                .flat_map(|(id, name)| [id.clone(), name.clone()])
+                .collect();
+            wanted.extend(filter_columns.iter().cloned());
+            if from_ns.is_some() || to_ns.is_some() {
+                wanted.push(contract::FLOW_END_TIME.to_string());
+                wanted.push(contract::EXPORT_TIME.to_string());
+            }
+            let mut scan = inputs.frame(&typed(wanted)?)?;
+            for predicate in &predicates {
+                scan = scan.filter(predicate.clone());
+            }
+            Some(NameScan { scan, pairs })
+        };
 
         let present = |name: &str| inputs.dtype(name).is_some();
         let record_time = time_bounds.is_none().then_some(record_time);
@@ -498,7 +561,7 @@ impl DropQuery {
         // Stage 1: one row per group and reason (and bucket).
         let stage1 = if !two_level {
             let mut aggs = stage1_aggs(with_moments, with_time);
-            aggs.extend(companion_aggs(&companions));
+            aggs.extend(companion_aggs(&carried));
             Stage1::Plan(
                 lf.with_columns(record_measures(record_time, &present))
                     .with_columns(derived)
@@ -512,7 +575,6 @@ impl DropQuery {
                 &present,
                 derived,
                 &group1,
-                &companions,
                 by_status,
             )?
         };
@@ -520,7 +582,8 @@ impl DropQuery {
             stage1,
             plans,
             key_names,
-            companions,
+            companions: carried,
+            names,
             reason_is_key,
             time_bounds,
         })
@@ -600,13 +663,160 @@ struct Prepared {
     plans: Vec<DimensionPlan>,
     /// Dimension key columns (companions excluded), without the bucket.
     key_names: Vec<String>,
-    /// Columns carried beside keys.
+    /// Columns carried beside keys through stage 1 (`compare`).
     companions: Vec<String>,
+    /// Drops' names, looked up for the groups that survive `top`.
+    names: Option<NameScan>,
     /// Whether `forwardingReason` is one of the keys.
     reason_is_key: bool,
     /// Earliest and latest record time (ns) from the footers; stage 1 then
     /// has no `_fs_first`/`_fs_last`.
     time_bounds: Option<(Option<i64>, Option<i64>)>,
+}
+
+/// Drops' names beside ids (interface and VRF names), looked up for the
+/// groups that are shown rather than carried through stage 1.
+///
+/// The name beside an id is the first non-null name in input order among
+/// the records the query keeps (filters and time bounds apply alike) that
+/// have that id. Looking it up afterwards reads only the id and name
+/// columns, only for the ids shown, and stops as soon as each has a name.
+struct NameScan {
+    /// The inputs' id and name columns (and what the filters read), with
+    /// the query's filters applied.
+    scan: LazyFrame,
+    /// (id column, name column) per named dimension.
+    pairs: Vec<(String, String)>,
+}
+
+impl NameScan {
+    /// Adds each name column to every frame, beside its id.
+    fn name(self, mut frames: Vec<DataFrame>) -> Result<Vec<DataFrame>, Error> {
+        for (id, name) in &self.pairs {
+            // The ids to name, once each (null included).
+            let mut ids: Option<Series> = None;
+            for frame in &frames {
+                let column = frame.column(id)?.as_materialized_series().clone();
+                ids = Some(match ids {
+                    None => column,
+                    Some(mut all) => {
+                        all.append(&column)?;
+                        all
+                    }
+                });
+            }
+            let found = match ids {
+                Some(ids) if !ids.is_empty() => {
+                    first_names(self.scan.clone(), id, name, &ids.unique()?, NAME_PREFIX_ROWS)?
+                }
+                _ => PlHashMap::new(),
+            };
+            for frame in &mut frames {
+                let ids = frame.column(id)?.as_materialized_series();
+                let mut names: Vec<Option<String>> = Vec::with_capacity(ids.len());
+                for i in 0..ids.len() {
+                    names.push(found.get(&ids.get(i)?.into_static()).cloned());
+                }
+                frame.with_column(Column::new(name.as_str().into(), names))?;
+            }
+        }
+        Ok(frames)
+    }
+}
+
+/// Rows the first pass of a name lookup reads before it leaves the ids
+/// still without a name to a filtered scan (see [`first_names`]).
+const NAME_PREFIX_ROWS: usize = 1 << 20;
+
+/// The first non-null `name` of each of `ids` (unique, null included) in
+/// the scan's order; ids without one are absent.
+///
+/// Two passes, each reading the id and name columns only. The first reads
+/// the inputs from the start until every id has a name, for at most
+/// `prefix_rows` rows ([`NAME_PREFIX_ROWS`] in queries): named ids are usually named early. The ids
+/// left (often one that is never named, such as interface 0) are then
+/// looked for from the start again with `id IN (...)` pushed into the
+/// scan, so the names are decoded only for their rows. A predicate on the
+/// name itself would make the reader decode every name (measured: about
+/// 0.8 s more CPU over 20 million rows).
+fn first_names(
+    scan: LazyFrame,
+    id: &str,
+    name: &str,
+    ids: &Series,
+    prefix_rows: usize,
+) -> Result<PlHashMap<AnyValue<'static>, String>, Error> {
+    let mut found = PlHashMap::new();
+    let missing = scan_names(scan.clone(), id, name, ids.clone(), prefix_rows, &mut found)?;
+    if !missing.is_empty() {
+        let named = missing.drop_nulls();
+        let mut predicate = col(id).is_in(lit(named.implode()?.into_series()), false);
+        if missing.null_count() > 0 {
+            predicate = predicate.or(col(id).is_null());
+        }
+        // Whatever is still missing has no name in the inputs.
+        let _unnamed = scan_names(scan.filter(predicate), id, name, missing, usize::MAX, &mut found)?;
+    }
+    Ok(found)
+}
+
+/// One pass of [`first_names`]: adds to `found` the first name of each
+/// `missing` id in `scan`'s order, reading at most about `limit` rows
+/// (whole batches); returns the ids still missing.
+fn scan_names(
+    scan: LazyFrame,
+    id: &str,
+    name: &str,
+    missing: Series,
+    limit: usize,
+    found: &mut PlHashMap<AnyValue<'static>, String>,
+) -> Result<Series, Error> {
+    let scan = scan.select([col(id), col(name).cast(DataType::String)]);
+    let state = Arc::new(Mutex::new((std::mem::take(found), missing, 0usize)));
+    let into = Arc::clone(&state);
+    let (id_column, name_column) = (id.to_string(), name.to_string());
+    let failed = || PolarsError::ComputeError("a batch of the name lookup failed".into());
+    let sink = scan.sink_batches(
+        PlanCallback::new(move |batch: DataFrame| {
+            let mut guard = into.lock().map_err(|_| failed())?;
+            let (found, missing, rows) = &mut *guard;
+            if missing.is_empty() || *rows >= limit {
+                return Ok(true);
+            }
+            *rows = rows.saturating_add(batch.height());
+            let ids = batch.column(&id_column)?.as_materialized_series();
+            let names = batch.column(&name_column)?.as_materialized_series();
+            let mask = is_in(ids, &missing.implode()?.into_series(), true)? & names.is_not_null();
+            if mask.any() {
+                // Each missing id's first named row in the batch; batches
+                // come in order.
+                let firsts = batch.filter(&mask)?.unique_stable(
+                    Some(std::slice::from_ref(&id_column)),
+                    UniqueKeepStrategy::First,
+                    None,
+                )?;
+                let ids = firsts.column(&id_column)?.as_materialized_series();
+                let names = firsts.column(&name_column)?.as_materialized_series().str()?;
+                for i in 0..firsts.height() {
+                    if let Some(text) = names.get(i) {
+                        found
+                            .entry(ids.get(i)?.into_static())
+                            .or_insert_with(|| text.to_string());
+                    }
+                }
+                let still = !is_in(missing, &ids.implode()?.into_series(), true)?;
+                *missing = missing.filter(&still)?;
+            }
+            Ok(missing.is_empty() || *rows >= limit)
+        }),
+        true,
+        None,
+    )?;
+    sink.collect_with_engine(Engine::Streaming)?;
+    let mut guard = state.lock().map_err(|_| failed())?;
+    let (names, missing, _) = &mut *guard;
+    *found = std::mem::take(names);
+    Ok(std::mem::take(missing))
 }
 
 /// The group-key output names of the dimensions, checked for clashes.
@@ -715,9 +925,6 @@ const G_D: &str = "_fs_g_d";
 const G_TO: &str = "_fs_g_to";
 const G_TDO: &str = "_fs_g_tdo";
 const G_DO: &str = "_fs_g_do";
-const G_ROW: &str = "_fs_g_row";
-/// Prefix of the first row number with a non-null companion.
-const G_AT: &str = "_fs_g_at_";
 
 /// Stage 1 of a query, ready to run.
 enum Stage1 {
@@ -750,14 +957,12 @@ struct TwoLevel {
 /// What level 2 needs to know about level 1's columns.
 struct Level2 {
     group1: Vec<String>,
-    companions: Vec<String>,
     /// Which of (Σt, Σcoalesce(t, d), Σd) level 1 has, packets and octets.
     have_p: [bool; 3],
     have_o: [bool; 3],
     has_outcome: bool,
     has_rate: bool,
     with_time: bool,
-    ordered: bool,
 }
 
 impl Stage1 {
@@ -820,17 +1025,14 @@ impl Stage1 {
 /// [`fold`]ed in one ordered pass instead of a polars group-by; the rows are
 /// the same.
 ///
-/// A companion (an interface name beside its id) is the first non-null
-/// value in input order; level 1 keeps, beside each group's first, the row
-/// number where it was seen, and level 2 takes the earliest. Row numbers
-/// need fewer rows than polars' index type holds.
+/// Names beside ids are not read here: drops looks them up for the
+/// groups it shows ([`NameScan`]).
 fn drops_stage1(
     lf: LazyFrame,
     record_time: Option<Expr>,
     present: &dyn Fn(&str) -> bool,
     derived: Vec<Expr>,
     group1: &[String],
-    companions: &[String],
     by_status: bool,
 ) -> Result<Stage1, Error> {
     use contract::*;
@@ -843,8 +1045,6 @@ fn drops_stage1(
         .collect();
     let has_outcome = by_status || present(FORWARDING_OUTCOME);
     let has_rate = present(SAMPLING_RATE);
-    let split = has_outcome || has_rate;
-    let ordered = split && !companions.is_empty();
     let mut lf = lf;
     if let Some(record_time) = record_time {
         lf = lf.with_column(record_time.alias(W_TIME));
@@ -913,7 +1113,6 @@ fn drops_stage1(
         DROPPED_OCTET_DELTA_COUNT,
         [G_TO, G_TDO, G_DO],
     );
-    let at_names: Vec<String> = (0..companions.len()).map(|i| format!("{G_AT}{i}")).collect();
 
     let schema = lf.clone().collect_schema()?;
     let spec = fold::Spec::new(
@@ -921,8 +1120,8 @@ fn drops_stage1(
         &keys,
         sums.iter().map(|(name, _)| name.to_string()).collect(),
         with_time.then(|| (W_TIME.to_string(), A_FIRST.to_string(), A_LAST.to_string())),
-        companions,
-        ordered.then(|| at_names.clone()),
+        &[],
+        None,
         FLOW_RECORDS,
     );
     let level1 = match spec {
@@ -932,7 +1131,6 @@ fn drops_stage1(
             if with_time {
                 columns.push(col(W_TIME));
             }
-            columns.extend(companions.iter().map(|c| col(c.as_str())));
             Level1::Fold(lf.select(columns), spec)
         }
         None => {
@@ -941,19 +1139,6 @@ fn drops_stage1(
             if with_time {
                 aggs.push(col(W_TIME).min().alias(A_FIRST));
                 aggs.push(col(W_TIME).max().alias(A_LAST));
-            }
-            aggs.extend(companion_aggs(companions));
-            if ordered {
-                lf = lf.with_row_index(G_ROW, None);
-                for (c, at) in companions.iter().zip(&at_names) {
-                    aggs.push(
-                        when(col(c.as_str()).is_not_null())
-                            .then(col(G_ROW))
-                            .otherwise(lit(NULL))
-                            .min()
-                            .alias(at.as_str()),
-                    );
-                }
             }
             Level1::Polars(
                 lf.group_by(keys.iter().map(|s| col(s.as_str())).collect::<Vec<_>>())
@@ -967,13 +1152,11 @@ fn drops_stage1(
         from_status,
         level2: Level2 {
             group1: group1.to_vec(),
-            companions: companions.to_vec(),
             have_p,
             have_o,
             has_outcome,
             has_rate,
             with_time,
-            ordered,
         },
     }))
 }
@@ -1069,15 +1252,6 @@ fn level2(level1: LazyFrame, l2: &Level2) -> LazyFrame {
         aggs.push(col(A_FIRST).min().alias(A_FIRST));
         aggs.push(col(A_LAST).max().alias(A_LAST));
     }
-    if l2.ordered {
-        aggs.extend(companion_aggs_in_order(&l2.companions));
-        for i in 0..l2.companions.len() {
-            let at = format!("{G_AT}{i}");
-            aggs.push(col(at.as_str()).min().alias(at.as_str()));
-        }
-    } else {
-        aggs.extend(companion_aggs(&l2.companions));
-    }
     level1
         .with_columns(measures)
         .group_by(l2.group1.iter().map(|s| col(s.as_str())).collect::<Vec<_>>())
@@ -1126,22 +1300,6 @@ fn companion_aggs(companions: &[String]) -> Vec<Expr> {
         .collect()
 }
 
-/// The companion seen first in input order, by the row numbers kept in
-/// `_fs_g_at_{i}` (null only where every record had none).
-fn companion_aggs_in_order(companions: &[String]) -> Vec<Expr> {
-    let order = SortMultipleOptions::default().with_nulls_last(true);
-    companions
-        .iter()
-        .enumerate()
-        .map(|(i, c)| {
-            col(c.as_str())
-                .sort_by([col(format!("{G_AT}{i}").as_str())], order.clone())
-                .first()
-                .alias(c.as_str())
-        })
-        .collect()
-}
-
 /// Stage 2: merges stage-1 rows into groups by `keys` (one row of totals
 /// when `keys` is empty), then adds ratio and interval columns.
 fn regroup(
@@ -1168,12 +1326,7 @@ fn regroup(
         aggs.push(col(A_FIRST).min().alias(A_FIRST));
         aggs.push(col(A_LAST).max().alias(A_LAST));
     }
-    let in_order = !companions.is_empty() && stage1.schema().contains(&format!("{G_AT}0"));
-    if in_order {
-        aggs.extend(companion_aggs_in_order(companions));
-    } else {
-        aggs.extend(companion_aggs(companions));
-    }
+    aggs.extend(companion_aggs(companions));
     if with_top_reason {
         // The reason with most dropped packets; ties go to the name first
         // in alphabetical order. Null when the group dropped nothing.
@@ -1475,6 +1628,54 @@ mod tests {
         let t = parse_time("2026-11-30T02:00:00+01:00").ok();
         assert_eq!(t.map(|t| t.timestamp()), Some(1_796_000_400));
         assert!(parse_time("2026-11-30 01:00").is_err());
+    }
+
+    /// The rule of [`first_names`]: per id, the first non-null name in
+    /// input order. Reference: a plain loop over the rows (the rule as
+    /// documented on `Dimension`); the two passes must not change it.
+    #[test]
+    fn first_names_are_first_in_input_order() {
+        // Batches of 4 rows; id 3 is named only in the last batch, id 4
+        // never, the null id in the second; id 1 has two names.
+        let ids: Vec<Option<u32>> = vec![
+            Some(1), Some(2), Some(4), Some(1),
+            None, Some(2), Some(1), None,
+            Some(3), Some(4), Some(3), Some(1),
+        ];
+        let names: Vec<Option<&str>> = vec![
+            None, Some("b"), None, Some("a1"),
+            None, Some("b2"), Some("a2"), Some("n"),
+            None, None, Some("c"), Some("a3"),
+        ];
+        let batches: Vec<LazyFrame> = (0..3)
+            .map(|b| {
+                let range = b * 4..b * 4 + 4;
+                df!("id" => &ids[range.clone()], "name" => &names[range])
+                    .map(IntoLazy::lazy)
+            })
+            .collect::<PolarsResult<_>>()
+            .unwrap_or_default();
+        let scan = concat(batches, UnionArgs::default()).expect("concat");
+        let mut expected: Vec<(Option<u32>, Option<&str>)> = Vec::new();
+        for (id, name) in ids.iter().zip(&names) {
+            match expected.iter_mut().find(|(seen, _)| seen == id) {
+                Some((_, first @ None)) => *first = *name,
+                Some(_) => {}
+                None => expected.push((*id, *name)),
+            }
+        }
+        let wanted = Series::new("id".into(), [Some(1u32), Some(2), Some(3), Some(4), None]);
+        for prefix_rows in [1, 4, 8, usize::MAX] {
+            let found = first_names(scan.clone(), "id", "name", &wanted, prefix_rows).expect("lookup");
+            for (id, name) in &expected {
+                let key = match id {
+                    Some(id) => AnyValue::UInt32(*id),
+                    None => AnyValue::Null,
+                };
+                assert_eq!(found.get(&key).map(String::as_str), *name, "id {id:?}, prefix {prefix_rows}");
+            }
+            assert_eq!(found.len(), 4, "id 4 has no name");
+        }
     }
 
     #[test]

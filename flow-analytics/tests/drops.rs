@@ -722,13 +722,16 @@ fn grouped_figures_match_the_per_record_definitions() {
         e.total_octets += n * to;
         e.records += 1;
         e.var += (n * (n - 1) * kp) as f64;
-        if e.name.is_none() {
-            e.name = name[i].clone();
-        }
         let first = by_iface.entry(iface[i].unwrap()).or_default();
         if first.is_none() {
             *first = name[i].clone();
         }
+    }
+    // The name beside an id is the first non-null one seen for the id in
+    // input order, whatever the other keys of the row (the documented
+    // rule; DuckDB's `arg_min(name, file_row_number)` per id agrees).
+    for ((id, _), e) in expected.iter_mut() {
+        e.name = by_iface[id].clone();
     }
 
     let table = DropQuery::new([&file])
@@ -977,4 +980,86 @@ fn texts_count_where_a_status_is_missing() {
             (None, 0, 80),
         ]
     );
+}
+
+/// Names beside ids are looked up after the groups are cut: the first
+/// non-null name of the id in input order among the records the query
+/// keeps, the same in every row and bucket that shows the id. Reference:
+/// the documented rule applied by hand to these rows (DuckDB's
+/// `arg_min(name, file_row_number)` per id gives the same).
+#[test]
+fn names_follow_filters_order_and_top() {
+    let dir = tempfile::tempdir().unwrap();
+    let one = write(
+        &dir.path().join("a/one.parquet"),
+        vec![
+            u32s("egressInterface", &[Some(7), Some(7), Some(8), Some(0)]),
+            strs("egressInterfaceName", &[None, Some("xe-0/0/7"), Some("xe-0/0/8"), None]),
+            u64s("packetDeltaCount", &[Some(10), Some(5), Some(1), Some(100)]),
+            strs("forwardingOutcome", &[Some("dropped"), Some("forwarded"), Some("dropped"), Some("dropped")]),
+            strs("forwardingReason", &[Some("policer"), None, Some("acl-deny"), Some("unroutable")]),
+            times("flowEndTime", &[Some(0), Some(10), Some(20), Some(30)]),
+        ],
+    );
+    let two = write(
+        &dir.path().join("b/two.parquet"),
+        vec![
+            u32s("egressInterface", &[Some(7), Some(9)]),
+            strs("egressInterfaceName", &[Some("ae1"), Some("xe-0/0/9")]),
+            u64s("packetDeltaCount", &[Some(3), Some(1)]),
+            strs("forwardingOutcome", &[Some("dropped"), Some("dropped")]),
+            strs("forwardingReason", &[Some("policer"), Some("policer")]),
+            times("flowEndTime", &[Some(4000), Some(4010)]),
+        ],
+    );
+    let names = |table: &DropTable| -> Vec<(Option<u32>, Option<String>)> {
+        let df = table.frame();
+        let ids = df.column("egressInterface").unwrap().u32().unwrap().clone();
+        let names = df.column("egressInterfaceName").unwrap().str().unwrap().clone();
+        (0..df.height())
+            .map(|i| (ids.get(i), names.get(i).map(str::to_string)))
+            .collect()
+    };
+    let s = |t: &str| Some(t.to_string());
+    // Interface 7's first name is in file one's second row, a row that
+    // dropped nothing; interface 0 has none.
+    let table = DropQuery::new([&one, &two])
+        .with_by([Dimension::EgressInterface, Dimension::Reason])
+        .run()
+        .unwrap();
+    assert_eq!(
+        names(&table),
+        vec![
+            (Some(0), None),
+            (Some(7), s("xe-0/0/7")),
+            (Some(8), s("xe-0/0/8")),
+            (Some(9), s("xe-0/0/9")),
+            (Some(7), s("xe-0/0/7")),
+        ]
+    );
+    // Only kept records name: without the forwarded row, file two's name.
+    let table = DropQuery::new([&one, &two])
+        .with_by([Dimension::EgressInterface])
+        .with_filter_sql("forwardingOutcome = 'dropped'")
+        .with_top(2)
+        .run()
+        .unwrap();
+    assert_eq!(names(&table), vec![(Some(0), None), (Some(7), s("ae1"))]);
+    // Every bucket shows the id's one name.
+    let table = DropQuery::new([&one, &two])
+        .with_by([Dimension::EgressInterface])
+        .with_every(Duration::from_secs(3600))
+        .run()
+        .unwrap();
+    let sevens: Vec<_> = names(&table).into_iter().filter(|(id, _)| *id == Some(7)).collect();
+    assert_eq!(sevens, vec![(Some(7), s("xe-0/0/7")), (Some(7), s("xe-0/0/7"))]);
+    // The headline names the top group's id too.
+    let table = DropQuery::new([&one, &two])
+        .with_by([Dimension::EgressInterface])
+        .with_filter_sql("egressInterface <> 0")
+        .with_top(1)
+        .run()
+        .unwrap();
+    let headline = render::headline(&table);
+    assert!(headline.contains("top: out interface 7 (xe-0/0/7)"), "{headline}");
 }

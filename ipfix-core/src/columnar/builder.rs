@@ -805,7 +805,10 @@ struct Fixed {
 /// Each plan is mapped to its columns once (cached by `Arc<Plan>`
 /// identity); the per-record loop then walks the fields and appends to typed
 /// builders without name lookups or per-value allocation, and columns the
-/// template lacks get their nulls in bulk per set.
+/// template lacks get their nulls in bulk per set. The records of
+/// consecutive fixed-layout sets of one plan are gathered (up to 1024) and
+/// their columns converted in one run; [`len`](Self::len) counts them at
+/// once and [`finish`](Self::finish) converts what is waiting.
 #[derive(Debug)]
 pub struct TableBuilder {
     schema: Arc<TableSchema>,
@@ -951,7 +954,10 @@ impl TableBuilder {
         self.rows == 0
     }
 
-    /// Counters since the builder was made.
+    /// Counters since the builder was made. Records of fixed-layout sets
+    /// may wait to be converted in a longer run (see [`TableBuilder`]); the
+    /// value counters of those records are added when they are, at the
+    /// latest by [`finish`](Self::finish).
     pub const fn stats(&self) -> &ColumnarStats {
         &self.stats
     }

@@ -12,9 +12,6 @@ use std::hint::black_box;
 use std::time::Duration;
 
 use criterion::{criterion_group, criterion_main, Criterion, Throughput};
-
-#[global_allocator]
-static ALLOC: tikv_jemallocator::Jemalloc = tikv_jemallocator::Jemalloc;
 use ipfix_core::{Config, Decoder, Event, TransportSession, Value};
 
 /// A capture in memory: one template message, then data messages.

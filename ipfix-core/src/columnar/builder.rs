@@ -1,6 +1,5 @@
 //! Typed column builders and the table builder that appends Data Sets.
 
-use std::any::Any;
 use std::fmt::Write as _;
 use std::sync::Arc;
 
@@ -553,15 +552,7 @@ impl ArrayBuilder for Scalar {
     fn finish_cloned(&self) -> ArrayRef {
         self.builder().finish_cloned()
     }
-    fn as_any(&self) -> &dyn Any {
-        self
-    }
-    fn as_any_mut(&mut self) -> &mut dyn Any {
-        self
-    }
-    fn into_box_any(self: Box<Self>) -> Box<dyn Any> {
-        self
-    }
+    super::any_impls!();
 }
 
 /// One column's builder.

@@ -7,12 +7,37 @@
 //! no per-value check. The buffers become a [`FixedSizeBinaryArray`]
 //! through Arrow's checked constructor.
 
-use std::any::Any;
 use std::sync::Arc;
 
 use arrow::array::builder::NullBufferBuilder;
 use arrow::array::{ArrayBuilder, ArrayRef, FixedSizeBinaryArray};
 use arrow::buffer::Buffer;
+
+/// Appends the `L` octets at `s` of every record to `values`, end to end,
+/// each as one fixed-size copy; false, with `values` as it was, when a
+/// record is too short.
+#[inline]
+pub(crate) fn copy_fields<'r, const L: usize>(
+    values: &mut Vec<u8>,
+    records: impl ExactSizeIterator<Item = &'r [u8]>,
+    s: usize,
+) -> bool {
+    let start = values.len();
+    values.resize(start.saturating_add(records.len().saturating_mul(L)), 0);
+    let mut whole = true;
+    if let Some(dst) = values.get_mut(start..) {
+        for (d, r) in dst.chunks_exact_mut(L).zip(records) {
+            match (d.first_chunk_mut::<L>(), r.get(s..).and_then(|t| t.first_chunk::<L>())) {
+                (Some(d), Some(v)) => *d = *v,
+                _ => whole = false,
+            }
+        }
+    }
+    if !whole {
+        values.truncate(start);
+    }
+    whole
+}
 
 /// A FixedSizeBinary column under construction.
 #[derive(Debug)]
@@ -84,20 +109,7 @@ impl FixedBuilder {
         if L != self.width {
             return false;
         }
-        let start = self.values.len();
-        self.values.resize(start.saturating_add(n.saturating_mul(L)), 0);
-        let mut whole = true;
-        if let Some(dst) = self.values.get_mut(start..) {
-            for (d, r) in dst.chunks_exact_mut(L).zip(records) {
-                match (d.first_chunk_mut::<L>(), r.get(s..).and_then(|t| t.first_chunk::<L>())) {
-                    (Some(d), Some(v)) => *d = *v,
-                    _ => whole = false,
-                }
-            }
-        }
-        if !whole {
-            // A record too short for the field: nothing appended.
-            self.values.truncate(start);
+        if !copy_fields::<L>(&mut self.values, records, s) {
             return false;
         }
         self.nulls.append_n_non_nulls(n);
@@ -133,15 +145,5 @@ impl ArrayBuilder for FixedBuilder {
         Self::build(self.width, self.values.clone(), self.nulls.finish_cloned())
     }
 
-    fn as_any(&self) -> &dyn Any {
-        self
-    }
-
-    fn as_any_mut(&mut self) -> &mut dyn Any {
-        self
-    }
-
-    fn into_box_any(self: Box<Self>) -> Box<dyn Any> {
-        self
-    }
+    super::any_impls!();
 }

@@ -130,6 +130,22 @@
 //! # Ok::<(), Box<dyn std::error::Error>>(())
 //! ```
 
+/// The `Any` conversions every `ArrayBuilder` of ours implements alike.
+macro_rules! any_impls {
+    () => {
+        fn as_any(&self) -> &dyn std::any::Any {
+            self
+        }
+        fn as_any_mut(&mut self) -> &mut dyn std::any::Any {
+            self
+        }
+        fn into_box_any(self: Box<Self>) -> Box<dyn std::any::Any> {
+            self
+        }
+    };
+}
+use any_impls;
+
 mod builder;
 mod derive;
 mod enrich;

@@ -7,7 +7,6 @@
 //! per value), next to a null buffer. The vector becomes a
 //! [`PrimitiveArray`] through Arrow's checked constructor.
 
-use std::any::Any;
 use std::sync::Arc;
 
 use arrow::array::builder::NullBufferBuilder;
@@ -108,15 +107,5 @@ impl<T: ArrowPrimitiveType> ArrayBuilder for Prim<T> {
         Self::build(self.values.clone(), self.nulls.finish_cloned(), &self.data_type)
     }
 
-    fn as_any(&self) -> &dyn Any {
-        self
-    }
-
-    fn as_any_mut(&mut self) -> &mut dyn Any {
-        self
-    }
-
-    fn into_box_any(self: Box<Self>) -> Box<dyn Any> {
-        self
-    }
+    super::any_impls!();
 }

@@ -1095,6 +1095,13 @@ mod prop {
         }
     }
 
+    /// `n` records of every fixed-length field of [`fields`], from `noise`.
+    fn fixed_messages(noise: &[u8], n: usize) -> Vec<Vec<u8>> {
+        let f: Vec<(u16, u16)> = fields().into_iter().filter(|(_, len)| *len != VARIABLE_LENGTH).collect();
+        let records: Vec<Vec<u8>> = (0..n).map(|i| record(&f, noise.get(i % noise.len()..).unwrap_or_default())).collect();
+        encode(&f, &records)
+    }
+
     proptest! {
         #![proptest_config(ProptestConfig::with_cases(96))]
 
@@ -1103,9 +1110,7 @@ mod prop {
         /// other test checks against the RFCs).
         #[test]
         fn column_path_equals_record_path(noise in proptest::collection::vec(any::<u8>(), 1..300), n in 1usize..40) {
-            let f: Vec<(u16, u16)> = fields().into_iter().filter(|(_, len)| *len != VARIABLE_LENGTH).collect();
-            let records: Vec<Vec<u8>> = (0..n).map(|i| record(&f, noise.get(i % noise.len()..).unwrap_or_default())).collect();
-            let messages = encode(&f, &records);
+            let messages = fixed_messages(&noise, n);
             let by_columns = convert_by(udp(), &messages, false);
             let by_rows = convert_by(udp(), &messages, true);
             prop_assert_eq!(by_columns.flows.num_rows(), n);
@@ -1137,9 +1142,7 @@ mod prop {
         /// equal, and its address and MAC octets give the readable texts.
         #[test]
         fn native_layout_keeps_every_value(noise in proptest::collection::vec(any::<u8>(), 1..300), n in 1usize..40) {
-            let f: Vec<(u16, u16)> = fields().into_iter().filter(|(_, len)| *len != VARIABLE_LENGTH).collect();
-            let records: Vec<Vec<u8>> = (0..n).map(|i| record(&f, noise.get(i % noise.len()..).unwrap_or_default())).collect();
-            let messages = encode(&f, &records);
+            let messages = fixed_messages(&noise, n);
             let native = convert_in(udp(), &messages, false, Layout::Native);
             let native_rows = convert_in(udp(), &messages, true, Layout::Native);
             let readable = convert_by(udp(), &messages, false);
@@ -1188,13 +1191,7 @@ mod prop {
                     r
                 })
                 .collect();
-            let loose: Vec<ElementId> = f.iter().map(|(ie, _)| ElementId::iana(*ie)).collect();
-            let mut e = super::loose(encoder(9), &loose);
-            e.add_template(template(256, 0, &f)).unwrap();
-            for r in &records {
-                e.push_raw(TemplateId(256), r).unwrap();
-            }
-            let messages = e.finish(EXPORT_TIME);
+            let messages = one_template(&f, &records);
             let native = convert_in(udp(), &messages, false, Layout::Native);
             let native_rows = convert_in(udp(), &messages, true, Layout::Native);
             let readable = convert_by(udp(), &messages, false);
@@ -1281,6 +1278,17 @@ mod prop {
         }
     }
 
+    /// Messages of template 256 with `fields` and the raw `records`.
+    fn one_template(fields: &[(u16, u16)], records: &[Vec<u8>]) -> Vec<Vec<u8>> {
+        let loose: Vec<ElementId> = fields.iter().map(|(ie, _)| ElementId::iana(*ie)).collect();
+        let mut e = super::loose(encoder(9), &loose);
+        e.add_template(template(256, 0, fields)).unwrap();
+        for r in records {
+            e.push_raw(TemplateId(256), r).unwrap();
+        }
+        e.finish(EXPORT_TIME)
+    }
+
     /// A basicList field value (with its 1-octet length prefix): semantic,
     /// element (id, length) and `n` elements of `noise` octets (RFC 6313 §4.5.1).
     fn basic_list(semantic: u8, (id, len): (u16, u16), n: usize, noise: &[u8]) -> Vec<u8> {
@@ -1320,13 +1328,7 @@ mod prop {
                     r
                 })
                 .collect();
-            let loose: Vec<ElementId> = f.iter().map(|(ie, _)| ElementId::iana(*ie)).collect();
-            let mut e = super::loose(encoder(9), &loose);
-            e.add_template(template(256, 0, &f)).unwrap();
-            for r in &records {
-                e.push_raw(TemplateId(256), r).unwrap();
-            }
-            let messages = e.finish(EXPORT_TIME);
+            let messages = one_template(&f, &records);
             let fast = convert_by(udp(), &messages, false);
             let values = convert_by(udp(), &messages, true);
             prop_assert_eq!(fast.flows.num_rows(), records.len());

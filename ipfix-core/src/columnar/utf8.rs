@@ -11,7 +11,6 @@
 //! Offsets are 32-bit, as Utf8 and Binary require. A value that would carry a batch's
 //! text past 2 GiB is written as null and counted rather than panicking.
 
-use std::any::Any;
 use std::fmt;
 use std::sync::Arc;
 
@@ -153,19 +152,7 @@ impl TextBuilder {
             return false;
         }
         self.values.truncate(start);
-        self.values.resize(end, 0);
-        let mut whole = true;
-        if let Some(dst) = self.values.get_mut(start..) {
-            for (d, r) in dst.chunks_exact_mut(L).zip(records) {
-                match (d.first_chunk_mut::<L>(), r.get(s..).and_then(|t| t.first_chunk::<L>())) {
-                    (Some(d), Some(v)) => *d = *v,
-                    _ => whole = false,
-                }
-            }
-        }
-        if !whole {
-            // A record too short for the field: nothing appended.
-            self.values.truncate(start);
+        if !super::fixed::copy_fields::<L>(&mut self.values, records, s) {
             return false;
         }
         // `end` fits an i32, so every offset up to it does.
@@ -290,17 +277,7 @@ impl ArrayBuilder for TextBuilder {
         Self::build(self.binary, self.offsets.clone(), values, self.nulls.finish_cloned())
     }
 
-    fn as_any(&self) -> &dyn Any {
-        self
-    }
-
-    fn as_any_mut(&mut self) -> &mut dyn Any {
-        self
-    }
-
-    fn into_box_any(self: Box<Self>) -> Box<dyn Any> {
-        self
-    }
+    super::any_impls!();
 }
 
 /// Dotted-decimal text of every octet value, padded to 4 octets with the

@@ -10,11 +10,10 @@
 //! pushdown; only the grouping is done here.
 //!
 //! The result is the frame of
-//! `group_by(keys).agg([len(), sum(s)…, min(time), max(time),
-//! c.drop_nulls().first()…, first row with c non-null…])`, which
+//! `group_by(keys).agg([len(), sum(s)…, min(time), max(time)])`, which
 //! `drops_stage1` builds with polars for every other shape of keys.
 //! Sums skip nulls and wrap on overflow as polars' do; a group's time
-//! bounds and companions are null when all of its values are.
+//! bounds are null when all of its values are.
 
 use std::sync::{Arc, Mutex};
 
@@ -41,18 +40,13 @@ struct Time {
     last: String,
 }
 
-/// What to fold: key, sum, time and companion columns, and output names.
+/// What to fold: key, sum and time columns, and output names.
 pub(crate) struct Spec {
     keys: Vec<KeyField>,
     /// UInt64 columns summed (the caller casts them), output under the
     /// same names.
     sums: Vec<String>,
     time: Option<Time>,
-    /// Text columns: the first non-null value in input order.
-    companions: Vec<String>,
-    /// Output names of the row numbers where each companion was first
-    /// non-null (row 0 is the first row the scan yields), when wanted.
-    at: Option<Vec<String>>,
     /// Output name of the row count.
     records: String,
 }
@@ -60,8 +54,7 @@ pub(crate) struct Spec {
 impl Spec {
     /// The spec for `keys` of `schema`; `None` when a key is not an
     /// unsigned integer of at most 32 bits or a boolean, the keys do not fit
-    /// [`WORDS`] 64-bit words, a companion is not text or the time column is
-    /// not a datetime.
+    /// [`WORDS`] 64-bit words or the time column is not a datetime.
     ///
     /// `time` is (column, minimum's name, maximum's name).
     pub(crate) fn new(
@@ -69,8 +62,6 @@ impl Spec {
         keys: &[String],
         sums: Vec<String>,
         time: Option<(String, String, String)>,
-        companions: &[String],
-        at: Option<Vec<String>>,
         records: &str,
     ) -> Option<Spec> {
         if keys.is_empty() {
@@ -114,18 +105,10 @@ impl Spec {
             },
             None => None,
         };
-        let texts = companions
-            .iter()
-            .all(|c| matches!(schema.get(c.as_str()), Some(DataType::String)));
-        if !texts {
-            return None;
-        }
         Some(Spec {
             keys: fields,
             sums,
             time,
-            companions: companions.to_vec(),
-            at,
             records: records.to_string(),
         })
     }
@@ -173,10 +156,6 @@ struct State {
     sums: Vec<Vec<u64>>,
     first: Vec<Option<i64>>,
     last: Vec<Option<i64>>,
-    /// Per companion, per group: the value and its row.
-    companions: Vec<Vec<Option<(String, u64)>>>,
-    /// Rows in earlier batches.
-    rows: u64,
     /// Per batch: the words of the packed keys and the group of each row.
     words: [Vec<u64>; WORDS],
     hashes: Vec<u64>,
@@ -192,8 +171,6 @@ impl State {
             sums: vec![Vec::new(); spec.sums.len()],
             first: Vec::new(),
             last: Vec::new(),
-            companions: vec![Vec::new(); spec.companions.len()],
-            rows: 0,
             words: [Vec::new(), Vec::new(), Vec::new()],
             hashes: Vec::new(),
             groups: Vec::new(),
@@ -220,11 +197,6 @@ impl State {
             let series = batch.column(&time.column)?.as_materialized_series().to_physical_repr();
             bounds_into(series.i64()?, &self.groups, &mut self.first, &mut self.last)?;
         }
-        for (name, firsts) in spec.companions.iter().zip(self.companions.iter_mut()) {
-            let texts = batch.column(name)?.as_materialized_series().str()?;
-            first_into(texts, &self.groups, self.rows, firsts)?;
-        }
-        self.rows += u64::try_from(n).unwrap_or(u64::MAX);
         Ok(())
     }
 
@@ -259,9 +231,6 @@ impl State {
                     }
                     self.first.push(None);
                     self.last.push(None);
-                    for c in &mut self.companions {
-                        c.push(None);
-                    }
                     g
                 }
             };
@@ -303,23 +272,6 @@ impl State {
         if let Some(time) = &spec.time {
             columns.push(Column::new(time.first.as_str().into(), self.first).cast(&time.dtype)?);
             columns.push(Column::new(time.last.as_str().into(), self.last).cast(&time.dtype)?);
-        }
-        let mut rows: Vec<Vec<Option<u64>>> = Vec::new();
-        for (name, firsts) in spec.companions.iter().zip(self.companions) {
-            let mut at = Vec::with_capacity(firsts.len());
-            let mut texts = Vec::with_capacity(firsts.len());
-            for first in firsts {
-                let (text, row) = first.unzip();
-                texts.push(text);
-                at.push(row);
-            }
-            columns.push(Column::new(name.as_str().into(), texts));
-            rows.push(at);
-        }
-        if let Some(names) = &spec.at {
-            for (name, at) in names.iter().zip(rows) {
-                columns.push(Column::new(name.as_str().into(), at));
-            }
         }
         DataFrame::new_infer_height(columns)
     }
@@ -437,34 +389,6 @@ fn bounds_into(
     Ok(())
 }
 
-/// Keeps, for each group still without one, the first non-null text and
-/// its row (`base` is the row of the batch's first row).
-fn first_into(
-    texts: &StringChunked,
-    groups: &[u32],
-    base: u64,
-    firsts: &mut [Option<(String, u64)>],
-) -> PolarsResult<()> {
-    let present = texts.is_not_null();
-    let mut offset = 0usize;
-    for (array, present) in texts.downcast_iter().zip(present.downcast_iter()) {
-        let end = offset + array.len();
-        let gs = groups.get(offset..end).ok_or_else(short)?;
-        for (i, g) in gs.iter().enumerate() {
-            // Most rows belong to a group that has its text already.
-            let Some(slot @ None) = firsts.get_mut(*g as usize) else {
-                continue;
-            };
-            if present.values().get_bit(i) {
-                let row = base + u64::try_from(offset + i).unwrap_or(u64::MAX);
-                *slot = Some((array.value(i).to_string(), row));
-            }
-        }
-        offset = end;
-    }
-    Ok(())
-}
-
 /// 64-bit words in a packed key.
 const WORDS: usize = 3;
 
@@ -566,9 +490,8 @@ mod tests {
 
     use super::*;
 
-    /// Rows with nulls in every kind of column, keys of every supported
-    /// type, and a companion whose first non-null comes late for some
-    /// groups.
+    /// Rows with nulls in every kind of column and keys of every
+    /// supported type.
     fn records() -> DataFrame {
         let n = 500usize;
         // A fixed pseudo-random sequence (64-bit LCG, Knuth's MMIX
@@ -620,12 +543,10 @@ mod tests {
             &keys,
             vec!["s".to_string()],
             Some(("time".into(), "first".into(), "last".into())),
-            &["name".to_string()],
-            Some(vec!["at".to_string()]),
             "records",
         )
         .unwrap();
-        // Three uneven batches: firsts and row numbers must carry over.
+        // Three uneven batches: groups and bounds must carry over.
         let mut state = State::new(&spec);
         for (offset, len) in [(0i64, 7usize), (7, 300), (307, 193)] {
             state.add(&spec, &df.slice(offset, len)).unwrap();
@@ -635,19 +556,12 @@ mod tests {
         let expected = df
             .clone()
             .lazy()
-            .with_row_index("row", None)
             .group_by(keys.iter().map(|k| col(k.as_str())).collect::<Vec<_>>())
             .agg([
                 len().cast(DataType::UInt64).alias("records"),
                 col("s").sum().alias("s"),
                 col("time").min().alias("first"),
                 col("time").max().alias("last"),
-                col("name").drop_nulls().first().alias("name"),
-                when(col("name").is_not_null())
-                    .then(col("row").cast(DataType::UInt64))
-                    .otherwise(lit(NULL))
-                    .min()
-                    .alias("at"),
             ])
             .collect()
             .unwrap();
@@ -673,7 +587,7 @@ mod tests {
         let df = records();
         let spec = |keys: &[&str]| {
             let keys: Vec<String> = keys.iter().map(|k| k.to_string()).collect();
-            Spec::new(&df.schema(), &keys, Vec::new(), None, &[], None, "records")
+            Spec::new(&df.schema(), &keys, Vec::new(), None, "records")
         };
         assert!(spec(&["a", "b", "c", "d"]).is_some());
         // Signed, 64-bit and text keys go to polars.
@@ -690,7 +604,7 @@ mod tests {
         )
         .unwrap();
         let keys = |n: usize| (0..n).map(|i| format!("k{i}")).collect::<Vec<_>>();
-        let fits = |n: usize| Spec::new(&wide.schema(), &keys(n), Vec::new(), None, &[], None, "r").is_some();
+        let fits = |n: usize| Spec::new(&wide.schema(), &keys(n), Vec::new(), None, "r").is_some();
         assert!(fits(3));
         assert!(!fits(4));
     }

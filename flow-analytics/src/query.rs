@@ -1120,8 +1120,6 @@ fn drops_stage1(
         &keys,
         sums.iter().map(|(name, _)| name.to_string()).collect(),
         with_time.then(|| (W_TIME.to_string(), A_FIRST.to_string(), A_LAST.to_string())),
-        &[],
-        None,
         FLOW_RECORDS,
     );
     let level1 = match spec {

@@ -927,6 +927,7 @@ const G_TDO: &str = "_fs_g_tdo";
 const G_DO: &str = "_fs_g_do";
 
 /// Stage 1 of a query, ready to run.
+#[allow(clippy::large_enum_variant, reason = "one value per query")]
 enum Stage1 {
     /// One polars plan (`compare`, and drops where the two levels do not
     /// apply).
@@ -936,6 +937,7 @@ enum Stage1 {
 }
 
 /// How drops' level 1 runs.
+#[allow(clippy::large_enum_variant, reason = "one value per query")]
 enum Level1 {
     /// A polars group-by.
     Polars(LazyFrame),

@@ -672,16 +672,16 @@ fn append_scalar_list(l: &mut ListBuilder<Scalar>, raw: &[u8], stats: &mut Colum
 
 /// The derived groups [`TableBuilder::append_fixed_set`] computes a column
 /// at a time from the record octets alone (no set context).
-fn column_groups(map: &PlanMap) -> u8 {
+fn column_groups(derived: &DerivedPlan) -> u8 {
     let absolute = |t: Option<TimeSource>| matches!(t, Some(TimeSource::Absolute(..)));
     let mut g = group::MPLS;
-    if map.derived.fwd.is_some() {
+    if derived.fwd.is_some() {
         g |= group::FWD;
     }
-    if absolute(map.derived.start) {
+    if absolute(derived.start) {
         g |= group::START;
     }
-    if absolute(map.derived.end) {
+    if absolute(derived.end) {
         g |= group::END;
     }
     g
@@ -767,6 +767,8 @@ struct PlanMap {
     /// Element columns this plan does not feed: null in bulk per set.
     absent: Vec<usize>,
     derived: DerivedPlan,
+    /// The derived groups appended a column at a time from the octets.
+    column_groups: u8,
     /// Options table: the scope column names of this plan.
     scope_names: Vec<String>,
     has_lists: bool,
@@ -869,8 +871,8 @@ impl ExactSizeIterator for Rows<'_> {}
 struct Stage {
     /// The plan, its mapping and the derived groups of the waiting records.
     of: Option<(Arc<Plan>, Arc<PlanMap>, u8)>,
+    /// The records end to end: the plan's record length each.
     bytes: Vec<u8>,
-    rows: usize,
 }
 
 /// Records gathered before their columns are converted.
@@ -1013,7 +1015,8 @@ impl TableBuilder {
                 })
                 .collect(),
         };
-        PlanMap { slots, absent, derived, scope_names, has_lists, layout, prefix }
+        let column_groups = column_groups(&derived);
+        PlanMap { slots, absent, derived, column_groups, scope_names, has_lists, layout, prefix }
     }
 
     fn plan_map(&mut self, plan: &Arc<Plan>) -> Arc<PlanMap> {
@@ -1064,7 +1067,7 @@ impl TableBuilder {
         };
 
         let n = match self.fixed_records(&map, set) {
-            Some(records) if groups & !column_groups(&map) == 0 => self.stage_set(set.plan(), &map, groups, records),
+            Some(records) if groups & !map.column_groups == 0 => self.stage_set(set.plan(), &map, groups, records),
             Some(records) => {
                 self.flush_stage();
                 self.append_fixed_set(&map, set.plan(), records, Some(&ctx), groups)
@@ -1200,10 +1203,9 @@ impl TableBuilder {
             self.flush_stage();
             self.stage.of = Some((plan.clone(), map.clone(), groups));
         }
-        let n = records.len();
+        let (n, stride) = (records.len(), records.stride);
         self.stage.bytes.extend_from_slice(records.rest);
-        self.stage.rows += n;
-        if self.stage.rows >= STAGE_ROWS {
+        if self.stage.bytes.len() >= STAGE_ROWS.saturating_mul(stride) {
             self.flush_stage();
         }
         n
@@ -1213,9 +1215,11 @@ impl TableBuilder {
     fn flush_stage(&mut self) {
         let Some((plan, map, groups)) = self.stage.of.take() else { return };
         let bytes = std::mem::take(&mut self.stage.bytes);
-        let rows = std::mem::take(&mut self.stage.rows);
-        if let Some(stride) = plan.fixed_len().filter(|l| *l > 0 && rows.checked_mul(*l) == Some(bytes.len())) {
-            self.append_fixed_set(&map, &plan, Rows { rest: &bytes, stride, left: rows }, None, groups);
+        // Only whole records of this plan were gathered (`stage_set`).
+        if let Some(stride) = plan.fixed_len().filter(|l| *l > 0) {
+            debug_assert_eq!(bytes.len() % stride, 0, "gathered records are whole");
+            let left = bytes.len() / stride;
+            self.append_fixed_set(&map, &plan, Rows { rest: &bytes, stride, left }, None, groups);
         }
         // Keep the buffer for the next records.
         self.stage.bytes = bytes;

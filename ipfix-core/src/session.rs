@@ -245,13 +245,12 @@ impl<'a> DataSet<'a> {
     }
     /// Iterates the Data Records (RFC 7011 §3.4.3); trailing padding is skipped.
     pub fn records(&self) -> DataRecords<'_> {
-        DataRecords {
-            plan: &self.plan,
-            data: &self.data,
-            pos: 0,
-            left: self.count,
-            scope: Scope { templates: &self.templates, depth: 0, max_depth: self.max_depth },
-        }
+        DataRecords { plan: &self.plan, data: &self.data, pos: 0, left: self.count, scope: self.scope() }
+    }
+
+    /// The templates and list depth bound nested lists of this set decode with.
+    pub(crate) fn scope(&self) -> Scope<'_> {
+        Scope { templates: &self.templates, depth: 0, max_depth: self.max_depth }
     }
 }
 

@@ -25,8 +25,8 @@ use super::schema::{
 use super::text::{write_mac, write_value_text};
 use super::utf8::{ipv4_text, ipv6_text, TextBuilder};
 use super::{ColumnarError, ColumnarStats};
-use crate::plan::{Decode, Plan};
-use crate::record::{field_span, DateTime, Record, Value};
+use crate::plan::{Decode, Plan, Step};
+use crate::record::{decode_value, field_span, DateTime, Record, Scope, TemplateTable, Value};
 use crate::session::DataSet;
 use crate::structured::Records;
 
@@ -610,12 +610,7 @@ impl Column {
     /// Appends a list-typed field's value.
     fn append_list(&mut self, v: &Value<'_>, stats: &mut ColumnarStats) {
         match (self, v) {
-            (Self::List(l), Value::BasicList(list)) => {
-                for item in list.iter() {
-                    l.values().append_value(&item, stats);
-                }
-                l.append(true);
-            }
+            (Self::List(l), Value::BasicList(_)) => append_basic_list_value(l, v, stats),
             (Self::Records(l), Value::SubTemplateList(list)) => {
                 let known = list.plan().is_some();
                 append_records(l.values(), list.semantic(), list.template_id(), known, list.records(), stats);
@@ -635,39 +630,111 @@ impl Column {
     }
 }
 
-/// Appends a basicList of fixed-length scalar elements straight from its
-/// octets when the item column has the elements' own type (RFC 6313
-/// §4.5.1: the elements are Element Length octets each). False, with
-/// nothing appended, for any other list: the caller takes the general path.
-fn append_scalar_list(l: &mut ListBuilder<Scalar>, raw: &[u8], stats: &mut ColumnarStats) -> bool {
-    let Some(list) = crate::structured::basic_list_header(raw) else { return false };
-    let len = usize::from(list.element.length);
-    if list.element.is_variable() || len == 0 || list.elements.len() % len != 0 {
-        return false;
+/// Appends a decoded basicList item by item (a value of another kind is a
+/// null, counted in `values_null_invalid`).
+fn append_basic_list_value(l: &mut ListBuilder<Scalar>, v: &Value<'_>, stats: &mut ColumnarStats) {
+    match v {
+        Value::BasicList(list) => {
+            for item in list.iter() {
+                l.values().append_value(&item, stats);
+            }
+            l.append(true);
+        }
+        _ => {
+            l.append_nulls(1);
+            stats.values_null_invalid += 1;
+        }
     }
-    // Only where the octets path gives what the value path gives.
+}
+
+/// A basicList whose elements can be appended straight from their octets
+/// (RFC 6313 §4.5.1: the elements are Element Length octets each).
+#[derive(Debug, Clone, Copy)]
+struct Direct {
+    /// The elements' decode.
+    decode: Decode,
+    /// Element Length.
+    len: usize,
+    /// Octets of the list header before the elements.
+    head: usize,
+}
+
+/// How a basicList's elements can be appended straight from their octets;
+/// `None` for variable-length or zero-length elements, and where the item
+/// column's type would make the octets path differ from the value path.
+fn list_direct(items: &Scalar, raw: &[u8]) -> Option<Direct> {
+    let list = crate::structured::basic_list_header(raw)?;
+    let len = usize::from(list.element.length);
+    if list.element.is_variable() || len == 0 {
+        return None;
+    }
     let same = matches!(
-        (l.values_ref(), list.decode),
+        (items, list.decode),
         (Scalar::U8(_) | Scalar::U16(_) | Scalar::U32(_) | Scalar::U64(_), Decode::Unsigned)
             | (Scalar::I8(_) | Scalar::I16(_) | Scalar::I32(_) | Scalar::I64(_), Decode::Signed)
             | (Scalar::Utf8(_), Decode::Ipv4Address | Decode::Ipv6Address)
             | (Scalar::Binary(_), Decode::Octets)
-    ) || matches!((l.values_ref(), list.decode), (Scalar::Fsb(b), Decode::Ipv4Address | Decode::Ipv6Address) if b.width() == len);
-    if !same {
+    ) || matches!((items, list.decode), (Scalar::Fsb(b), Decode::Ipv4Address | Decode::Ipv6Address) if b.width() == len);
+    same.then_some(Direct { decode: list.decode, len, head: raw.len() - list.elements.len() })
+}
+
+/// Appends one list (`raw`: the whole value) from its element octets;
+/// false, with nothing appended, unless they are whole elements.
+fn append_direct(l: &mut ListBuilder<Scalar>, raw: &[u8], d: Direct, stats: &mut ColumnarStats) -> bool {
+    let (elements, len) = (raw.get(d.head..).unwrap_or_default(), d.len);
+    if !elements.len().is_multiple_of(len) {
         return false;
     }
-    let items = l.values();
-    match items {
+    match l.values() {
         // Addresses as sent: the elements are the items' octets already.
-        Scalar::Fsb(b) => b.append_packed(list.elements),
+        Scalar::Fsb(b) => b.append_packed(elements),
         items => {
-            for element in list.elements.chunks_exact(len) {
-                items.append_raw(list.decode, element, stats);
+            for element in elements.chunks_exact(len) {
+                items.append_raw(d.decode, element, stats);
             }
         }
     }
     l.append(true);
     true
+}
+
+/// Appends a basicList of fixed-length scalar elements straight from its
+/// octets where [`list_direct`] allows. False, with nothing appended, for
+/// any other list: the caller takes the general path.
+fn append_scalar_list(l: &mut ListBuilder<Scalar>, raw: &[u8], stats: &mut ColumnarStats) -> bool {
+    match list_direct(l.values_ref(), raw) {
+        Some(d) => append_direct(l, raw, d, stats),
+        None => false,
+    }
+}
+
+/// Appends a column of basicList values, one per record. Where a header
+/// (semantic, element id and length, enterprise number) repeats the
+/// previous record's, the decision of [`list_direct`] is reused: headers
+/// are parsed once per run of equal ones, not once per record.
+fn append_basic_lists<'r>(
+    l: &mut ListBuilder<Scalar>,
+    values: impl Iterator<Item = &'r [u8]>,
+    scope: Scope<'r>,
+    stats: &mut ColumnarStats,
+) {
+    let mut last: Option<(&[u8], Option<Direct>)> = None;
+    for raw in values {
+        // The header: 5 octets, 9 with an enterprise number (E bit set).
+        let head = raw.get(..if raw.get(1).is_some_and(|b| b & 0x80 != 0) { 9 } else { 5 });
+        let direct = match (last, head) {
+            (Some((h, d)), Some(now)) if h == now => d,
+            _ => {
+                let d = list_direct(l.values_ref(), raw);
+                last = head.map(|h| (h, d));
+                d
+            }
+        };
+        let done = direct.is_some_and(|d| append_direct(l, raw, d, stats));
+        if !done {
+            append_basic_list_value(l, &decode_value(Decode::BasicList, raw, scope), stats);
+        }
+    }
 }
 
 /// The derived groups [`TableBuilder::append_fixed_set`] computes a column
@@ -775,10 +842,96 @@ struct PlanMap {
     /// (start, end) of every field when all are fixed-length and there are
     /// no lists: records are then sliced without walking.
     layout: Option<Vec<(usize, usize)>>,
-    /// (start, end) of the leading fields at a fixed offset that are not
-    /// lists, for plans without a layout: those columns are appended a
-    /// column at a time, the rest of each record field by field.
-    prefix: Vec<(usize, usize)>,
+    /// Plans without a layout: the walk by steps ([`Plan::steps`]), each
+    /// appended a column at a time.
+    steps: Vec<StepMap>,
+    /// Plans without a layout: where each field's octets are in the walk.
+    locs: Vec<Loc>,
+}
+
+/// The columns of one step of the walk over a record.
+#[derive(Debug)]
+enum StepMap {
+    /// Fixed-length fields from index `first` on, at `spans` (start, end)
+    /// within the step's octets.
+    Fixed { first: usize, spans: Vec<(usize, usize)> },
+    /// A variable-length field or a list: the field at this index.
+    Field(usize),
+}
+
+/// Where a field's octets are: within step `step`'s octets at `within`
+/// (start, end), or all of them (`None`: a variable-length field or list).
+#[derive(Debug, Clone, Copy)]
+struct Loc {
+    step: usize,
+    within: Option<(usize, usize)>,
+}
+
+/// Builds the walk by steps of a plan's fields the way [`Plan::steps`]
+/// merges them: runs of fixed-length non-list fields are one step.
+fn step_maps(plan: &Plan) -> (Vec<StepMap>, Vec<Loc>) {
+    let mut steps: Vec<StepMap> = Vec::new();
+    let mut locs = Vec::with_capacity(plan.fields().len());
+    let mut at = 0;
+    for (i, f) in plan.fields().iter().enumerate() {
+        let list = matches!(f.decode, Decode::BasicList | Decode::SubTemplateList | Decode::SubTemplateMultiList);
+        let len = usize::from(f.spec.length);
+        match steps.last_mut() {
+            _ if f.is_variable() || list => {
+                steps.push(StepMap::Field(i));
+                locs.push(Loc { step: steps.len() - 1, within: None });
+                continue;
+            }
+            Some(StepMap::Fixed { spans, .. }) => spans.push((at, at + len)),
+            _ => {
+                at = 0;
+                steps.push(StepMap::Fixed { first: i, spans: vec![(0, len)] });
+            }
+        }
+        locs.push(Loc { step: steps.len() - 1, within: Some((at, at + len)) });
+        at += len;
+    }
+    (steps, locs)
+}
+
+/// Walks `n` records of `body` by the plan's steps: for every step `k`,
+/// `walk[k]` receives the (start, end) of the step's octets in each record
+/// (for a variable-length field, its value without the length prefix),
+/// plus `base`. Returns where the last record ends; `None`, with `walk`
+/// as it was, when a record does not walk, which only a caller-built set
+/// can cause: the decoder checked every length when it accepted the message.
+fn walk_steps(plan: &Plan, body: &[u8], n: usize, walk: &mut Vec<Vec<(u32, u32)>>, base: usize) -> Option<usize> {
+    let steps = plan.steps();
+    walk.resize_with(steps.len(), Vec::new);
+    let before = walk.first().map_or(0, Vec::len);
+    let fits = base.checked_add(body.len()).is_some_and(|end| u32::try_from(end).is_ok());
+    let mut at = 0usize;
+    let mut ok = fits;
+    'records: for _ in 0..n {
+        if !ok {
+            break;
+        }
+        for (step, w) in steps.iter().zip(walk.iter_mut()) {
+            let span = match *step {
+                Step::Fixed(len) => at.checked_add(len).filter(|e| *e <= body.len()).map(|e| (at, e)),
+                Step::Field(i) => plan.fields().get(i).and_then(|f| field_span(body, at, &f.spec)),
+            };
+            let Some((s, e)) = span else {
+                ok = false;
+                break 'records;
+            };
+            // Both within `body`, and `base` plus its length fits in a u32.
+            w.push(((base + s) as u32, (base + e) as u32));
+            at = e;
+        }
+    }
+    if !ok {
+        for w in walk.iter_mut() {
+            w.truncate(before);
+        }
+        return None;
+    }
+    Some(at)
 }
 
 /// Column positions that do not depend on the plan.
@@ -814,6 +967,8 @@ pub struct TableBuilder {
     rows: usize,
     stats: ColumnarStats,
     spans: Vec<Option<(usize, usize)>>,
+    /// The walk by steps of the set being appended ([`walk_steps`]).
+    walk: Vec<Vec<(u32, u32)>>,
     labels: Vec<u32>,
     text: String,
     /// The exporter whose address `text` holds.
@@ -869,14 +1024,33 @@ impl ExactSizeIterator for Rows<'_> {}
 /// appended at once, so every column still receives the sets in order.
 #[derive(Debug, Default)]
 struct Stage {
-    /// The plan, its mapping and the derived groups of the waiting records.
-    of: Option<(Arc<Plan>, Arc<PlanMap>, u8)>,
-    /// The records end to end: the plan's record length each.
+    /// What the waiting records are.
+    of: Option<Staged>,
+    /// The records end to end: the plan's record length each when it has
+    /// a fixed layout.
     bytes: Vec<u8>,
+    /// Plans without a fixed layout: the records' walk by steps
+    /// ([`walk_steps`]), offsets in `bytes`.
+    walk: Vec<Vec<(u32, u32)>>,
+}
+
+/// The plan, its mapping and the derived groups of gathered records, and
+/// the templates their nested lists decode with.
+#[derive(Debug)]
+struct Staged {
+    plan: Arc<Plan>,
+    map: Arc<PlanMap>,
+    groups: u8,
+    templates: Arc<TemplateTable>,
+    max_depth: u8,
 }
 
 /// Records gathered before their columns are converted.
 const STAGE_ROWS: usize = 1024;
+
+/// Octets of variable-length records gathered before their columns are
+/// converted (records of up to 64 KiB each).
+const STAGE_BYTES: usize = 1 << 20;
 
 /// Rows reserved past the capacity: callers finish a batch once it reaches
 /// the capacity, which the last set usually passes by a few records; the
@@ -923,6 +1097,7 @@ impl TableBuilder {
             rows: 0,
             stats: ColumnarStats::default(),
             spans: Vec::new(),
+            walk: Vec::new(),
             labels: Vec::new(),
             text: String::new(),
             text_of: None,
@@ -1004,19 +1179,13 @@ impl TableBuilder {
                 .collect::<Option<Vec<_>>>(),
             _ => None,
         };
-        let prefix = match layout {
-            Some(_) => Vec::new(),
-            None => plan
-                .fields()
-                .iter()
-                .map_while(|f| {
-                    let list = matches!(f.decode, Decode::BasicList | Decode::SubTemplateList | Decode::SubTemplateMultiList);
-                    f.offset.filter(|_| !f.is_variable() && !list).map(|o| (o, o + usize::from(f.spec.length)))
-                })
-                .collect(),
+        let (steps, locs) = match layout {
+            Some(_) => Default::default(),
+            None => step_maps(plan),
         };
+        debug_assert!(layout.is_some() || steps.len() == plan.steps().len(), "the walk by steps is the plan's");
         let column_groups = column_groups(&derived);
-        PlanMap { slots, absent, derived, column_groups, scope_names, has_lists, layout, prefix }
+        PlanMap { slots, absent, derived, column_groups, scope_names, has_lists, layout, steps, locs }
     }
 
     fn plan_map(&mut self, plan: &Arc<Plan>) -> Arc<PlanMap> {
@@ -1072,25 +1241,19 @@ impl TableBuilder {
                 self.flush_stage();
                 self.append_fixed_set(&map, set.plan(), records, Some(&ctx), groups)
             }
+            None if groups & !map.column_groups == 0 && self.stage_walked(set, &map, groups) => set.len(),
             None => {
                 self.flush_stage();
-                let skip = if self.row_path() { 0 } else { map.prefix.len() };
-                if skip == 0 {
-                    let mut n = 0usize;
-                    for record in set.records() {
-                        self.append_record(&map, &record, &ctx, groups, 0);
-                        n += 1;
+                match self.append_stepped_set(&map, set, &ctx, groups) {
+                    Some(n) => n,
+                    None => {
+                        let mut n = 0usize;
+                        for record in set.records() {
+                            self.append_record(&map, &record, &ctx, groups);
+                            n += 1;
+                        }
+                        n
                     }
-                    n
-                } else {
-                    // The fixed leading fields a column at a time, then the
-                    // rest of each record.
-                    let records: Vec<Record<'_>> = set.records().collect();
-                    self.append_field_columns(&map, set.plan(), &map.prefix, records.iter().map(|r| r.bytes()));
-                    for record in &records {
-                        self.append_record(&map, record, &ctx, groups, skip);
-                    }
-                    records.len()
                 }
             }
         };
@@ -1164,17 +1327,21 @@ impl TableBuilder {
         Some(Rows { rest: body, stride: len, left: set.len() })
     }
 
-    /// Appends the fields at `spans` (the plan's first fields, each at a
-    /// fixed offset and not a list) of every record, a column at a time.
+    /// Appends the fields from index `first` on at `spans` (fixed-length
+    /// fields, not lists, at those offsets of each of `records`), a column
+    /// at a time.
     fn append_field_columns<'r>(
         &mut self,
         map: &PlanMap,
         plan: &Plan,
+        first: usize,
         spans: &[(usize, usize)],
         records: impl ExactSizeIterator<Item = &'r [u8]> + Clone,
     ) {
         let n = records.len();
-        for ((slot, field), (s, e)) in map.slots.iter().zip(plan.fields()).zip(spans) {
+        let slots = map.slots.get(first..).unwrap_or_default();
+        let fields = plan.fields().get(first..).unwrap_or_default();
+        for ((slot, field), (s, e)) in slots.iter().zip(fields).zip(spans) {
             if slot.column == UNPLACED {
                 self.stats.values_unplaced += n as u64;
                 continue;
@@ -1194,14 +1361,149 @@ impl TableBuilder {
         }
     }
 
+    /// Appends a set of a plan without a fixed layout a column at a time
+    /// (see [`append_walked`](Self::append_walked)). `None`, with nothing
+    /// appended, when a record does not walk (a caller-built set only).
+    fn append_stepped_set(&mut self, map: &PlanMap, set: &DataSet<'_>, ctx: &SetContext<'_>, groups: u8) -> Option<usize> {
+        if self.row_path() {
+            return None;
+        }
+        let (plan, body, n) = (set.plan(), set.bytes(), set.len());
+        let mut walk = std::mem::take(&mut self.walk);
+        walk.iter_mut().for_each(Vec::clear);
+        let walked = walk_steps(plan, body, n, &mut walk, 0).is_some();
+        if walked {
+            self.append_walked(map, plan, body, &walk, Some(ctx), groups, set.scope());
+        }
+        self.walk = walk;
+        walked.then_some(n)
+    }
+
+    /// Gathers the records of a set of a plan without a fixed layout, with
+    /// their walk by steps (flushing those of another plan first); false,
+    /// with nothing gathered, when a record does not walk.
+    fn stage_walked(&mut self, set: &DataSet<'_>, map: &Arc<PlanMap>, groups: u8) -> bool {
+        if self.row_path() {
+            return false;
+        }
+        let (plan, templates) = (set.plan(), set.templates());
+        let same = self.stage.of.as_ref().is_some_and(|o| {
+            Arc::ptr_eq(&o.plan, plan) && o.groups == groups && Arc::ptr_eq(&o.templates, templates)
+        });
+        if !same {
+            self.flush_stage();
+            let max_depth = set.scope().max_depth;
+            self.stage.of =
+                Some(Staged { plan: plan.clone(), map: map.clone(), groups, templates: templates.clone(), max_depth });
+        }
+        let base = self.stage.bytes.len();
+        let Some(end) = walk_steps(plan, set.bytes(), set.len(), &mut self.stage.walk, base) else {
+            return false;
+        };
+        self.stage.bytes.extend_from_slice(set.bytes().get(..end).unwrap_or_default());
+        if self.stage.walk.first().map_or(0, Vec::len) >= STAGE_ROWS || self.stage.bytes.len() >= STAGE_BYTES {
+            self.flush_stage();
+        }
+        true
+    }
+
+    /// Appends `n` records of `body` a column at a time, given their walk
+    /// by steps: fixed-length runs as in
+    /// [`append_fixed_set`](Self::append_fixed_set), then each
+    /// variable-length field or list over all records, then the derived
+    /// columns record by record. Without `ctx` (gathered sets), only the
+    /// derived groups computed from the record alone may be asked.
+    #[allow(clippy::too_many_arguments)]
+    fn append_walked(
+        &mut self,
+        map: &PlanMap,
+        plan: &Plan,
+        body: &[u8],
+        walk: &[Vec<(u32, u32)>],
+        ctx: Option<&SetContext<'_>>,
+        groups: u8,
+        scope: Scope<'_>,
+    ) {
+        let octets = |k: usize| {
+            let spans = walk.get(k).map(Vec::as_slice).unwrap_or_default();
+            spans.iter().map(move |&(s, e)| body.get(s as usize..e as usize).unwrap_or_default())
+        };
+        for (k, step) in map.steps.iter().enumerate() {
+            match step {
+                StepMap::Fixed { first, spans } => self.append_field_columns(map, plan, *first, spans, octets(k)),
+                StepMap::Field(i) => self.append_value_column(map, plan, *i, octets(k), scope),
+            }
+        }
+        let Some(base) = self.fixed.derived.filter(|_| groups != 0) else { return };
+        debug_assert!(ctx.is_some() || groups & !map.column_groups == 0, "gathered sets have column groups only");
+        // The column groups do not read the set context.
+        let none = SetContext::new(0, None);
+        let ctx = ctx.unwrap_or(&none);
+        for r in 0..walk.first().map_or(0, Vec::len) {
+            let raw = |i: usize| {
+                let loc = map.locs.get(i)?;
+                let &(s, e) = walk.get(loc.step)?.get(r)?;
+                let (s, e) = (s as usize, e as usize);
+                match loc.within {
+                    Some((a, b)) => body.get(s + a..s + b),
+                    None => body.get(s..e),
+                }
+            };
+            let row = map.derived.compute(groups, raw, ctx, &mut self.labels, &mut self.stats);
+            self.append_derived(base, &row, groups);
+        }
+    }
+
+    /// Appends field `index` (variable-length or a list) of every record,
+    /// given its value octets per record.
+    fn append_value_column<'r>(
+        &mut self,
+        map: &PlanMap,
+        plan: &Plan,
+        index: usize,
+        values: impl ExactSizeIterator<Item = &'r [u8]>,
+        scope: Scope<'r>,
+    ) {
+        let n = values.len();
+        let (Some(slot), Some(field)) = (map.slots.get(index), plan.fields().get(index)) else { return };
+        if slot.column == UNPLACED {
+            self.stats.values_unplaced += n as u64;
+            return;
+        }
+        if field.length_mismatch {
+            self.stats.values_octets_fallback += n as u64;
+        }
+        let list = matches!(slot.decode, Decode::BasicList | Decode::SubTemplateList | Decode::SubTemplateMultiList);
+        match self.columns.get_mut(slot.column) {
+            Some(Column::Scalar(col)) => {
+                for raw in values {
+                    col.append_raw(slot.decode, raw, &mut self.stats);
+                }
+            }
+            Some(Column::List(l)) if slot.decode == Decode::BasicList => append_basic_lists(l, values, scope, &mut self.stats),
+            Some(col) if list => {
+                for raw in values {
+                    col.append_list(&decode_value(slot.decode, raw, scope), &mut self.stats);
+                }
+            }
+            Some(col) => {
+                col.append_nulls(n);
+                self.stats.values_null_invalid += n as u64;
+            }
+            None => {}
+        }
+    }
+
     /// Appends a fixed-layout set column by column; returns the rows.
     /// Gathers a fixed-layout set's records (flushing those of another plan
     /// first); returns the rows.
     fn stage_set(&mut self, plan: &Arc<Plan>, map: &Arc<PlanMap>, groups: u8, records: Rows<'_>) -> usize {
-        let same = self.stage.of.as_ref().is_some_and(|(p, _, g)| Arc::ptr_eq(p, plan) && *g == groups);
+        let same = self.stage.of.as_ref().is_some_and(|o| Arc::ptr_eq(&o.plan, plan) && o.groups == groups);
         if !same {
             self.flush_stage();
-            self.stage.of = Some((plan.clone(), map.clone(), groups));
+            // Fixed-layout records hold no lists: their templates are not needed.
+            let (templates, max_depth) = (Arc::default(), 0);
+            self.stage.of = Some(Staged { plan: plan.clone(), map: map.clone(), groups, templates, max_depth });
         }
         let (n, stride) = (records.len(), records.stride);
         self.stage.bytes.extend_from_slice(records.rest);
@@ -1213,17 +1515,25 @@ impl TableBuilder {
 
     /// Appends the gathered records' columns.
     fn flush_stage(&mut self) {
-        let Some((plan, map, groups)) = self.stage.of.take() else { return };
+        let Some(Staged { plan, map, groups, templates, max_depth }) = self.stage.of.take() else { return };
         let bytes = std::mem::take(&mut self.stage.bytes);
-        // Only whole records of this plan were gathered (`stage_set`).
-        if let Some(stride) = plan.fixed_len().filter(|l| *l > 0) {
-            debug_assert_eq!(bytes.len() % stride, 0, "gathered records are whole");
-            let left = bytes.len() / stride;
-            self.append_fixed_set(&map, &plan, Rows { rest: &bytes, stride, left }, None, groups);
+        let mut walk = std::mem::take(&mut self.stage.walk);
+        if map.layout.is_some() {
+            // Only whole records of this plan were gathered (`stage_set`).
+            if let Some(stride) = plan.fixed_len().filter(|l| *l > 0) {
+                debug_assert_eq!(bytes.len() % stride, 0, "gathered records are whole");
+                let left = bytes.len() / stride;
+                self.append_fixed_set(&map, &plan, Rows { rest: &bytes, stride, left }, None, groups);
+            }
+        } else {
+            let scope = Scope { templates: &templates, depth: 0, max_depth };
+            self.append_walked(&map, &plan, &bytes, &walk, None, groups, scope);
         }
-        // Keep the buffer for the next records.
+        // Keep the buffers for the next records.
         self.stage.bytes = bytes;
         self.stage.bytes.clear();
+        walk.iter_mut().for_each(Vec::clear);
+        self.stage.walk = walk;
     }
 
     fn append_fixed_set(
@@ -1236,7 +1546,7 @@ impl TableBuilder {
     ) -> usize {
         let n = records.len();
         let Some(layout) = map.layout.as_deref() else { return 0 };
-        self.append_field_columns(map, plan, layout, records.clone());
+        self.append_field_columns(map, plan, 0, layout, records.clone());
         let Some(base) = self.fixed.derived.filter(|_| groups != 0) else { return n };
         let mut groups = groups;
         if let Some((_, end)) = map.derived.fwd.and_then(|i| layout.get(i)).filter(|_| groups & group::FWD != 0) {
@@ -1304,23 +1614,16 @@ impl TableBuilder {
         n
     }
 
-    /// Appends one record's fields from index `skip` on (the earlier ones
-    /// were appended a column at a time) and its derived columns.
-    fn append_record(&mut self, map: &PlanMap, record: &Record<'_>, ctx: &SetContext<'_>, groups: u8, skip: usize) {
+    /// Appends one record's fields and its derived columns.
+    fn append_record(&mut self, map: &PlanMap, record: &Record<'_>, ctx: &SetContext<'_>, groups: u8) {
         let data = record.bytes();
         let fields = record.plan().fields();
         // Spans are kept for the derived columns only.
         let derived = self.fixed.derived.is_some() && groups != 0;
         self.spans.clear();
-        // The first `skip` fields sit at the fixed offsets of `map.prefix`.
-        let lead = map.prefix.get(..skip).unwrap_or_default();
-        let mut pos = lead.last().map_or(0, |&(_, e)| e);
-        let mut ok = pos <= data.len();
-        if derived {
-            self.spans.extend(lead.iter().map(|&(s, e)| (e <= data.len()).then_some((s, e))));
-        }
-        let rest = map.slots.get(lead.len()..).unwrap_or_default().iter().zip(fields.get(lead.len()..).unwrap_or_default());
-        for (i, (slot, field)) in (lead.len()..).zip(rest) {
+        let mut pos = 0;
+        let mut ok = true;
+        for (i, (slot, field)) in map.slots.iter().zip(fields).enumerate() {
             let span = if ok { field_span(data, pos, &field.spec) } else { None };
             if derived {
                 self.spans.push(span);

@@ -23,20 +23,36 @@ pub(crate) fn copy_fields<'r, const L: usize>(
     s: usize,
 ) -> bool {
     let start = values.len();
-    values.resize(start.saturating_add(records.len().saturating_mul(L)), 0);
-    let mut whole = true;
-    if let Some(dst) = values.get_mut(start..) {
-        for (d, r) in dst.chunks_exact_mut(L).zip(records) {
-            match (d.first_chunk_mut::<L>(), r.get(s..).and_then(|t| t.first_chunk::<L>())) {
-                (Some(d), Some(v)) => *d = *v,
-                _ => whole = false,
+    if L < 16 {
+        // Short values: zero-filled at once, then overwritten in place
+        // (fewer instructions than appending each).
+        values.resize(start.saturating_add(records.len().saturating_mul(L)), 0);
+        let mut whole = true;
+        if let Some(dst) = values.get_mut(start..) {
+            for (d, r) in dst.chunks_exact_mut(L).zip(records) {
+                match (d.first_chunk_mut::<L>(), r.get(s..).and_then(|t| t.first_chunk::<L>())) {
+                    (Some(d), Some(v)) => *d = *v,
+                    _ => whole = false,
+                }
+            }
+        }
+        if !whole {
+            values.truncate(start);
+        }
+        return whole;
+    }
+    // Longer ones: reserved once and appended (no zero-fill first).
+    values.reserve(records.len().saturating_mul(L));
+    for r in records {
+        match r.get(s..).and_then(|t| t.first_chunk::<L>()) {
+            Some(v) => values.extend_from_slice(v),
+            None => {
+                values.truncate(start);
+                return false;
             }
         }
     }
-    if !whole {
-        values.truncate(start);
-    }
-    whole
+    true
 }
 
 /// A FixedSizeBinary column under construction.

@@ -74,7 +74,15 @@ impl<T: ArrowPrimitiveType> Prim<T> {
     #[inline]
     pub(crate) fn extend_values(&mut self, values: impl ExactSizeIterator<Item = T::Native>) {
         let n = values.len();
-        self.values.extend(values);
+        let start = self.values.len();
+        // Filled at once, then overwritten in place: no capacity check per
+        // value, which `Vec::extend` does for iterators of unknown origin.
+        self.values.resize(start.saturating_add(n), T::Native::default());
+        if let Some(dst) = self.values.get_mut(start..) {
+            for (d, v) in dst.iter_mut().zip(values) {
+                *d = v;
+            }
+        }
         self.nulls.append_n_non_nulls(n);
     }
 

@@ -6,7 +6,7 @@ use crate::error::ListProblem;
 use crate::field::FieldSpecifier;
 use crate::ie;
 use crate::plan::{Decode, Plan};
-use crate::record::{decode_value, field_span, record_len, record_span, Record, RecordFault, Scope, Value};
+use crate::record::{decode_value, field_span, record_len, record_span, whole_count, Record, RecordFault, Scope, Value};
 
 /// List semantics (RFC 6313 §4.4; IANA "IPFIX Structured Data Types Semantics").
 pub mod semantic {
@@ -341,8 +341,10 @@ pub(crate) fn validate(decode: Decode, b: &[u8], scope: Scope<'_>) -> Result<(),
             if !list.element.is_variable() && element_len > 0 && !nested {
                 // Fixed-length scalar elements: the list holds whole
                 // elements or the first incomplete one overruns.
-                let whole = list.elements.len() / element_len * element_len;
-                return if whole == list.elements.len() { Ok(()) } else { Err((header + whole, ListProblem::ElementOverrun)) };
+                return match whole_count(list.elements.len(), element_len) {
+                    Some(_) => Ok(()),
+                    None => Err((header + list.elements.len() / element_len * element_len, ListProblem::ElementOverrun)),
+                };
             }
             let mut pos = 0;
             while pos < list.elements.len() {

@@ -26,7 +26,7 @@ use super::text::{write_mac, write_value_text};
 use super::utf8::{ipv4_text, ipv6_text, TextBuilder};
 use super::{ColumnarError, ColumnarStats};
 use crate::plan::{Decode, Plan, Step};
-use crate::record::{decode_value, field_span, DateTime, Record, Scope, TemplateTable, Value};
+use crate::record::{decode_value, field_span, whole_count, DateTime, Record, Scope, TemplateTable, Value};
 use crate::session::DataSet;
 use crate::structured::Records;
 
@@ -681,15 +681,13 @@ fn list_direct(items: &Scalar, raw: &[u8]) -> Option<Direct> {
 /// Appends one list (`raw`: the whole value) from its element octets;
 /// false, with nothing appended, unless they are whole elements.
 fn append_direct(l: &mut ListBuilder<Scalar>, raw: &[u8], d: Direct, stats: &mut ColumnarStats) -> bool {
-    let (elements, len) = (raw.get(d.head..).unwrap_or_default(), d.len);
-    if !elements.len().is_multiple_of(len) {
-        return false;
-    }
+    let elements = raw.get(d.head..).unwrap_or_default();
+    let Some(n) = whole_count(elements.len(), d.len) else { return false };
     match l.values() {
         // Addresses as sent: the elements are the items' octets already.
-        Scalar::Fsb(b) => b.append_packed(elements),
+        Scalar::Fsb(b) => b.append_packed(elements, n),
         items => {
-            for element in elements.chunks_exact(len) {
+            for element in elements.chunks_exact(d.len) {
                 items.append_raw(d.decode, element, stats);
             }
         }

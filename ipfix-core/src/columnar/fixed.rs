@@ -90,11 +90,10 @@ impl FixedBuilder {
         true
     }
 
-    /// Appends `packed.len() / width` values laid end to end (the caller
-    /// checks that the length is a multiple of the width).
+    /// Appends the `n` values laid end to end in `packed` (the caller
+    /// checks that it holds `n` times the width).
     #[inline]
-    pub(crate) fn append_packed(&mut self, packed: &[u8]) {
-        let n = packed.len().checked_div(self.width).unwrap_or(0);
+    pub(crate) fn append_packed(&mut self, packed: &[u8], n: usize) {
         debug_assert_eq!(n * self.width, packed.len());
         self.values.extend_from_slice(packed.get(..n * self.width).unwrap_or_default());
         self.nulls.append_n_non_nulls(n);

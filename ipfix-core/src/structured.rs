@@ -69,6 +69,15 @@ pub(crate) struct BasicListHeader<'a> {
 /// Decodes a basicList header: Semantic (1), E bit + Field ID (2), Element
 /// Length (2), Enterprise Number (4) when E = 1 (RFC 6313 §4.5.1).
 pub(crate) fn basic_list_header(b: &[u8]) -> Option<BasicListHeader<'_>> {
+    let (element, data_type, elements) = basic_list_parts(b)?;
+    let (decode, _) = Decode::choose(data_type, element.length);
+    Some(BasicListHeader { element, data_type, decode, elements })
+}
+
+/// The element's Field Specifier and abstract type (octetArray when not
+/// registered), and the element octets, of a basicList.
+#[inline]
+fn basic_list_parts(b: &[u8]) -> Option<(FieldSpecifier, DataType, &[u8])> {
     let raw_id = be16(b, 1)?;
     let length = be16(b, 3)?;
     let (element, elements) = if raw_id & 0x8000 != 0 {
@@ -81,8 +90,7 @@ pub(crate) fn basic_list_header(b: &[u8]) -> Option<BasicListHeader<'_>> {
         None => ie::lookup(element.element.id).and_then(|e| e.data_type).unwrap_or(DataType::OctetArray),
         Some(_) => DataType::OctetArray,
     };
-    let (decode, _) = Decode::choose(data_type, length);
-    Some(BasicListHeader { element, data_type, decode, elements })
+    Some((element, data_type, elements))
 }
 
 impl<'a> BasicList<'a> {
@@ -331,30 +339,33 @@ pub(crate) fn validate(decode: Decode, b: &[u8], scope: Scope<'_>) -> Result<(),
     };
     match decode {
         Decode::BasicList => {
-            let list = basic_list_header(b).ok_or_else(|| {
+            let (element, data_type, elements) = basic_list_parts(b).ok_or_else(|| {
                 let needed = if be16(b, 1).is_some_and(|id| id & 0x8000 != 0) { 9 } else { 5 };
                 (0, ListProblem::ShortHeader { needed, available: b.len() })
             })?;
-            let header = b.len() - list.elements.len();
-            let element_len = usize::from(list.element.length);
-            let nested = matches!(list.decode, Decode::BasicList | Decode::SubTemplateList | Decode::SubTemplateMultiList);
-            if !list.element.is_variable() && element_len > 0 && !nested {
+            let header = b.len() - elements.len();
+            let element_len = usize::from(element.length);
+            // List types accept any length, so their elements decode as
+            // lists (`Decode::choose`).
+            let nested = data_type.is_list();
+            if !element.is_variable() && element_len > 0 && !nested {
                 // Fixed-length scalar elements: the list holds whole
                 // elements or the first incomplete one overruns.
-                return match whole_count(list.elements.len(), element_len) {
+                return match whole_count(elements.len(), element_len) {
                     Some(_) => Ok(()),
-                    None => Err((header + list.elements.len() / element_len * element_len, ListProblem::ElementOverrun)),
+                    None => Err((header + elements.len() / element_len * element_len, ListProblem::ElementOverrun)),
                 };
             }
+            let decode = Decode::choose(data_type, element.length).0;
             let mut pos = 0;
-            while pos < list.elements.len() {
-                if list.element.length == 0 {
+            while pos < elements.len() {
+                if element.length == 0 {
                     return Err((header + pos, ListProblem::ZeroElementLength));
                 }
                 let (start, end) =
-                    field_span(list.elements, pos, &list.element).ok_or((header + pos, ListProblem::ElementOverrun))?;
-                if let Some(raw) = list.elements.get(start..end) {
-                    validate(list.decode, raw, inner).map_err(|(o, p)| (header + start + o, p))?;
+                    field_span(elements, pos, &element).ok_or((header + pos, ListProblem::ElementOverrun))?;
+                if let Some(raw) = elements.get(start..end) {
+                    validate(decode, raw, inner).map_err(|(o, p)| (header + start + o, p))?;
                 }
                 pos = end;
             }

@@ -716,10 +716,14 @@ fn append_basic_lists<'r>(
     scope: Scope<'r>,
     stats: &mut ColumnarStats,
 ) {
-    let mut last: Option<(&[u8], Option<Direct>)> = None;
+    // The previous header, zero-padded to 9 octets, and its decision.
+    let mut last: Option<([u8; 9], Option<Direct>)> = None;
     for raw in values {
         // The header: 5 octets, 9 with an enterprise number (E bit set).
-        let head = raw.get(..if raw.get(1).is_some_and(|b| b & 0x80 != 0) { 9 } else { 5 });
+        let head = match raw.first_chunk::<5>() {
+            Some(h) if h[1] & 0x80 == 0 => Some([h[0], h[1], h[2], h[3], h[4], 0, 0, 0, 0]),
+            _ => raw.first_chunk::<9>().copied(),
+        };
         let direct = match (last, head) {
             (Some((h, d)), Some(now)) if h == now => d,
             _ => {

@@ -324,12 +324,13 @@ criterion_group!(benches, bench);
 /// as fresh pages that fault in on first touch. Whether that happens
 /// depended on what ran before in the process, and doubled the decode
 /// times (40 % of them system time). Freeing one 31 MiB mapping first
-/// raises both thresholds for the rest of the process (mallopt(3),
-/// M_MMAP_THRESHOLD: "dynamic adjustment"), so every run measures the
-/// decoder with its memory reused, as a long-running collector has it.
-/// Other allocators ignore this.
+/// (zeroed, so mapped but never touched) raises both thresholds for the
+/// rest of the process (mallopt(3), M_MMAP_THRESHOLD: "dynamic
+/// adjustment"), so every run measures the decoder with its memory reused,
+/// as a long-running collector has it (`flowsift` does the same). Other
+/// allocators ignore this.
 fn settle_allocator() {
-    drop(black_box(vec![1u8; 31 << 20]));
+    drop(black_box(vec![0u8; 31 << 20]));
 }
 
 fn main() {

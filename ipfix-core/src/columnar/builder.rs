@@ -1496,7 +1496,6 @@ impl TableBuilder {
         }
     }
 
-    /// Appends a fixed-layout set column by column; returns the rows.
     /// Gathers a fixed-layout set's records (flushing those of another plan
     /// first); returns the rows.
     fn stage_set(&mut self, plan: &Arc<Plan>, map: &Arc<PlanMap>, groups: u8, records: Rows<'_>) -> usize {
@@ -1538,6 +1537,7 @@ impl TableBuilder {
         self.stage.walk = walk;
     }
 
+    /// Appends a fixed-layout set column by column; returns the rows.
     fn append_fixed_set(
         &mut self,
         map: &PlanMap,

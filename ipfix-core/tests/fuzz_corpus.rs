@@ -30,3 +30,15 @@ fn template_compile_corpus() {
         + replay(&root.join("regressions/template_compile"), ipfix_core::harness::template_compile);
     assert!(n > 0, "corpus is empty");
 }
+
+/// The decode-session corpus through the column builders too (the
+/// converter's path); its own corpus adds what fuzzing that target found.
+#[cfg(feature = "columnar")]
+#[test]
+fn decode_to_columns_corpus() {
+    let root = Path::new(env!("CARGO_MANIFEST_DIR")).join("fuzz");
+    let n = replay(&root.join("corpus/decode_session"), ipfix_core::harness::decode_to_columns)
+        + replay(&root.join("corpus/decode_to_columns"), ipfix_core::harness::decode_to_columns)
+        + replay(&root.join("regressions/decode_to_columns"), ipfix_core::harness::decode_to_columns);
+    assert!(n > 0, "corpus is empty");
+}

@@ -951,12 +951,13 @@ struct Fixed {
 /// [`RecordBatch`]es of a [`TableSchema`].
 ///
 /// Each plan is mapped to its columns once (cached by `Arc<Plan>`
-/// identity); the per-record loop then walks the fields and appends to typed
-/// builders without name lookups or per-value allocation, and columns the
-/// template lacks get their nulls in bulk per set. The records of
-/// consecutive fixed-layout sets of one plan are gathered (up to 1024) and
-/// their columns converted in one run; [`len`](Self::len) counts them at
-/// once and [`finish`](Self::finish) converts what is waiting.
+/// identity); values are then appended a column at a time to typed builders
+/// without name lookups or per-value allocation, and columns the template
+/// lacks get their nulls in bulk per set. The records of consecutive sets of
+/// one plan are gathered (up to 1024; records with variable-length fields
+/// or lists walked once by the plan's steps) and their columns converted in
+/// one run; [`len`](Self::len) counts them at once and
+/// [`finish`](Self::finish) converts what is waiting.
 #[derive(Debug)]
 pub struct TableBuilder {
     schema: Arc<TableSchema>,

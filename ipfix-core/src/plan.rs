@@ -55,6 +55,12 @@ pub enum Decode {
 }
 
 impl Decode {
+    /// True for the RFC 6313 list types, whose content is checked and
+    /// decoded recursively.
+    pub const fn is_list(self) -> bool {
+        matches!(self, Self::BasicList | Self::SubTemplateList | Self::SubTemplateMultiList)
+    }
+
     /// Chooses the decoder for `data_type` sent in `length` octets; falls back
     /// to [`Decode::Octets`] when the length is not allowed for the type.
     pub const fn choose(data_type: DataType, length: u16) -> (Self, bool) {
@@ -142,8 +148,9 @@ pub struct Plan {
 /// One step of the walk over a record (see [`Plan::steps`]).
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub(crate) enum Step {
-    /// Fixed-length fields that are not lists: this many octets in all.
-    Fixed(usize),
+    /// `count` fixed-length fields that are not lists, from index `first`
+    /// on: `len` octets in all.
+    Fixed { len: usize, first: usize, count: usize },
     /// A variable-length field or a list (whose content is checked): the
     /// field at this index.
     Field(usize),
@@ -177,7 +184,7 @@ impl Plan {
             };
             let data_type = ie.and_then(|e| e.data_type).unwrap_or(DataType::OctetArray);
             let (decode, length_mismatch) = Decode::choose(data_type, spec.length);
-            has_lists |= matches!(decode, Decode::BasicList | Decode::SubTemplateList | Decode::SubTemplateMultiList);
+            has_lists |= decode.is_list();
             let occurrence = template
                 .fields
                 .iter()
@@ -208,11 +215,13 @@ impl Plan {
         }
         let mut steps = Vec::new();
         for (i, f) in fields.iter().enumerate() {
-            let list = matches!(f.decode, Decode::BasicList | Decode::SubTemplateList | Decode::SubTemplateMultiList);
             match steps.last_mut() {
-                _ if f.is_variable() || list => steps.push(Step::Field(i)),
-                Some(Step::Fixed(n)) => *n += usize::from(f.spec.length),
-                _ => steps.push(Step::Fixed(usize::from(f.spec.length))),
+                _ if f.is_variable() || f.decode.is_list() => steps.push(Step::Field(i)),
+                Some(Step::Fixed { len, count, .. }) => {
+                    *len += usize::from(f.spec.length);
+                    *count += 1;
+                }
+                _ => steps.push(Step::Fixed { len: usize::from(f.spec.length), first: i, count: 1 }),
             }
         }
         Ok(Arc::new(Self { template, fields, fixed_len: offset, min_len, has_lists, steps }))

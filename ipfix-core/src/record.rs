@@ -413,7 +413,7 @@ pub(crate) fn record_span(plan: &Plan, data: &[u8], pos: usize) -> Option<usize>
     let mut at = pos;
     for step in plan.steps() {
         at = match *step {
-            Step::Fixed(n) => at.checked_add(n).filter(|e| *e <= data.len())?,
+            Step::Fixed { len, .. } => at.checked_add(len).filter(|e| *e <= data.len())?,
             Step::Field(i) => field_span(data, at, &plan.fields().get(i)?.spec)?.1,
         };
     }
@@ -443,12 +443,11 @@ pub(crate) fn record_len(
     let mut at = pos;
     for step in plan.steps() {
         let next = match *step {
-            Step::Fixed(n) => at.checked_add(n).filter(|e| *e <= data.len()),
+            Step::Fixed { len, .. } => at.checked_add(len).filter(|e| *e <= data.len()),
             Step::Field(i) => plan.fields().get(i).and_then(|f| {
                 let (start, end) = field_span(data, at, &f.spec)?;
-                let list = matches!(f.decode, Decode::BasicList | Decode::SubTemplateList | Decode::SubTemplateMultiList);
                 match data.get(start..end) {
-                    Some(value) if list => crate::structured::validate(f.decode, value, scope).ok().map(|()| end),
+                    Some(value) if f.decode.is_list() => crate::structured::validate(f.decode, value, scope).ok().map(|()| end),
                     Some(_) => Some(end),
                     None => None,
                 }

@@ -330,9 +330,8 @@ impl<'a> Iterator for Entries<'a> {
 /// Checks the lengths inside a list-typed value (recursively, bounded by
 /// `scope.max_depth`). Returns the offset (within `b`) and the problem.
 pub(crate) fn validate(decode: Decode, b: &[u8], scope: Scope<'_>) -> Result<(), (usize, ListProblem)> {
-    match decode {
-        Decode::BasicList | Decode::SubTemplateList | Decode::SubTemplateMultiList => {}
-        _ => return Ok(()),
+    if !decode.is_list() {
+        return Ok(());
     }
     let Some(inner) = scope.deeper() else {
         return Err((0, ListProblem::TooDeep { limit: usize::from(scope.max_depth) }));

@@ -869,30 +869,38 @@ struct Loc {
     within: Option<(usize, usize)>,
 }
 
-/// Builds the walk by steps of a plan's fields the way [`Plan::steps`]
-/// merges them: runs of fixed-length non-list fields are one step.
+/// The columns of each step of [`Plan::steps`], and where each field's
+/// octets are in the walk.
 fn step_maps(plan: &Plan) -> (Vec<StepMap>, Vec<Loc>) {
-    let mut steps: Vec<StepMap> = Vec::new();
-    let mut locs = Vec::with_capacity(plan.fields().len());
-    let mut at = 0;
-    for (i, f) in plan.fields().iter().enumerate() {
-        let list = matches!(f.decode, Decode::BasicList | Decode::SubTemplateList | Decode::SubTemplateMultiList);
-        let len = usize::from(f.spec.length);
-        match steps.last_mut() {
-            _ if f.is_variable() || list => {
-                steps.push(StepMap::Field(i));
-                locs.push(Loc { step: steps.len() - 1, within: None });
-                continue;
-            }
-            Some(StepMap::Fixed { spans, .. }) => spans.push((at, at + len)),
-            _ => {
-                at = 0;
-                steps.push(StepMap::Fixed { first: i, spans: vec![(0, len)] });
-            }
+    let fields = plan.fields();
+    let mut locs = vec![Loc { step: 0, within: None }; fields.len()];
+    let mut put = |i: usize, loc: Loc| {
+        if let Some(l) = locs.get_mut(i) {
+            *l = loc;
         }
-        locs.push(Loc { step: steps.len() - 1, within: Some((at, at + len)) });
-        at += len;
-    }
+    };
+    let steps = plan
+        .steps()
+        .iter()
+        .enumerate()
+        .map(|(step, s)| match *s {
+            Step::Fixed { first, count, .. } => {
+                let mut at = 0;
+                let mut spans = Vec::with_capacity(count);
+                for (i, f) in fields.iter().enumerate().skip(first).take(count) {
+                    let span = (at, at + usize::from(f.spec.length));
+                    spans.push(span);
+                    put(i, Loc { step, within: Some(span) });
+                    at = span.1;
+                }
+                StepMap::Fixed { first, spans }
+            }
+            Step::Field(i) => {
+                put(i, Loc { step, within: None });
+                StepMap::Field(i)
+            }
+        })
+        .collect();
     (steps, locs)
 }
 
@@ -903,35 +911,26 @@ fn step_maps(plan: &Plan) -> (Vec<StepMap>, Vec<Loc>) {
 /// as it was, when a record does not walk, which only a caller-built set
 /// can cause: the decoder checked every length when it accepted the message.
 fn walk_steps(plan: &Plan, body: &[u8], n: usize, walk: &mut Vec<Vec<(u32, u32)>>, base: usize) -> Option<usize> {
+    // Offsets are u32: `base` plus the body must fit.
+    u32::try_from(base.checked_add(body.len())?).ok()?;
     let steps = plan.steps();
     walk.resize_with(steps.len(), Vec::new);
     let before = walk.first().map_or(0, Vec::len);
-    let fits = base.checked_add(body.len()).is_some_and(|end| u32::try_from(end).is_ok());
     let mut at = 0usize;
-    let mut ok = fits;
-    'records: for _ in 0..n {
-        if !ok {
-            break;
-        }
+    for _ in 0..n {
         for (step, w) in steps.iter().zip(walk.iter_mut()) {
             let span = match *step {
-                Step::Fixed(len) => at.checked_add(len).filter(|e| *e <= body.len()).map(|e| (at, e)),
+                Step::Fixed { len, .. } => at.checked_add(len).filter(|e| *e <= body.len()).map(|e| (at, e)),
                 Step::Field(i) => plan.fields().get(i).and_then(|f| field_span(body, at, &f.spec)),
             };
             let Some((s, e)) = span else {
-                ok = false;
-                break 'records;
+                walk.iter_mut().for_each(|w| w.truncate(before));
+                return None;
             };
-            // Both within `body`, and `base` plus its length fits in a u32.
+            // Both within `body`, so `base` plus either fits in a u32.
             w.push(((base + s) as u32, (base + e) as u32));
             at = e;
         }
-    }
-    if !ok {
-        for w in walk.iter_mut() {
-            w.truncate(before);
-        }
-        return None;
     }
     Some(at)
 }
@@ -970,7 +969,8 @@ pub struct TableBuilder {
     rows: usize,
     stats: ColumnarStats,
     spans: Vec<Option<(usize, usize)>>,
-    /// The walk by steps of the set being appended ([`walk_steps`]).
+    /// The walk by steps of a set appended at once, not gathered (its own
+    /// buffer: the gathered walk must stay empty between flushes).
     walk: Vec<Vec<(u32, u32)>>,
     labels: Vec<u32>,
     text: String,
@@ -1171,9 +1171,7 @@ impl TableBuilder {
             TableKind::Flows => DerivedPlan::new(plan),
             TableKind::Options => DerivedPlan::default(),
         };
-        let has_lists = slots
-            .iter()
-            .any(|s| matches!(s.decode, Decode::BasicList | Decode::SubTemplateList | Decode::SubTemplateMultiList));
+        let has_lists = slots.iter().any(|s| s.decode.is_list());
         let layout = match (plan.fixed_len(), has_lists) {
             (Some(_), false) => plan
                 .fields()
@@ -1186,7 +1184,6 @@ impl TableBuilder {
             Some(_) => Default::default(),
             None => step_maps(plan),
         };
-        debug_assert!(layout.is_some() || steps.len() == plan.steps().len(), "the walk by steps is the plan's");
         let column_groups = column_groups(&derived);
         PlanMap { slots, absent, derived, column_groups, scope_names, has_lists, layout, steps, locs }
     }
@@ -1476,7 +1473,6 @@ impl TableBuilder {
         if field.length_mismatch {
             self.stats.values_octets_fallback += n as u64;
         }
-        let list = matches!(slot.decode, Decode::BasicList | Decode::SubTemplateList | Decode::SubTemplateMultiList);
         match self.columns.get_mut(slot.column) {
             Some(Column::Scalar(col)) => {
                 for raw in values {
@@ -1484,7 +1480,7 @@ impl TableBuilder {
                 }
             }
             Some(Column::List(l)) if slot.decode == Decode::BasicList => append_basic_lists(l, values, scope, &mut self.stats),
-            Some(col) if list => {
+            Some(col) if slot.decode.is_list() => {
                 for raw in values {
                     col.append_list(&decode_value(slot.decode, raw, scope), &mut self.stats);
                 }

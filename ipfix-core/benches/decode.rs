@@ -317,24 +317,11 @@ mod columnar {
 
 criterion_group!(benches, bench);
 
-/// glibc's malloc returns freed memory at the top of its heap to the
-/// system once more than its trim threshold is free, and serves large
-/// requests from fresh mappings until its dynamic threshold has risen; each
-/// batch's column buffers, freed once the batch is consumed, then come back
-/// as fresh pages that fault in on first touch. Whether that happens
-/// depended on what ran before in the process, and doubled the decode
-/// times (40 % of them system time). Freeing one 31 MiB mapping first
-/// (zeroed, so mapped but never touched) raises both thresholds for the
-/// rest of the process (mallopt(3), M_MMAP_THRESHOLD: "dynamic
-/// adjustment"), so every run measures the decoder with its memory reused,
-/// as a long-running collector has it (`flowsift` does the same). Other
-/// allocators ignore this.
-fn settle_allocator() {
-    drop(black_box(vec![0u8; 31 << 20]));
-}
-
 fn main() {
-    settle_allocator();
+    // Without it, whether each batch's freed buffers came back as faulting
+    // fresh pages depended on what ran before in the process, and doubled
+    // decode times in some runs (see `settle_allocator`).
+    ipfix_core::settle_allocator();
     benches();
     Criterion::default().configure_from_args().final_summary();
 }

@@ -446,11 +446,10 @@ pub(crate) fn record_len(
             Step::Fixed { len, .. } => at.checked_add(len).filter(|e| *e <= data.len()),
             Step::Field(i) => plan.fields().get(i).and_then(|f| {
                 let (start, end) = field_span(data, at, &f.spec)?;
-                match data.get(start..end) {
-                    Some(value) if f.decode.is_list() => crate::structured::validate(f.decode, value, scope).ok().map(|()| end),
-                    Some(_) => Some(end),
-                    None => None,
-                }
+                // Only lists have content to check.
+                let ok = !f.decode.is_list()
+                    || data.get(start..end).is_some_and(|v| crate::structured::validate(f.decode, v, scope).is_ok());
+                ok.then_some(end)
             }),
         };
         match next {

@@ -341,10 +341,10 @@ mod tests {
     #[test]
     fn drops_names_statuses_as_convert_does() {
         // flow-analytics groups on forwardingStatus and names the groups
-        // with its own copy of the IANA forwardingStatus registry; convert
-        // derives the text columns with ipfix-core's. They must agree for
-        // every octet (RFC 7270 §4.12: only the least-significant octet has
-        // a meaning), whatever the reserved bits above it.
+        // afterwards; convert derives the text columns. Both must read the
+        // IANA forwardingStatus registry alike for every octet (RFC 7270
+        // §4.12: only the least-significant octet has a meaning), whatever
+        // the reserved bits above it.
         for octet in 0u32..=0xFF {
             for high in [0u32, 0x0100, 0x1234_5600, 0xFFFF_FF00] {
                 let status = ipfix_core::ie::ForwardingStatus(high | octet);

@@ -34,61 +34,16 @@ pub const FLOW_END_TIME: &str = "flowEndTime";
 pub const EXPORT_TIME: &str = "exportTime";
 
 /// The `forwardingOutcome` value that marks a whole record as dropped.
-pub const OUTCOME_DROPPED: &str = "dropped";
-
-/// Every assigned forwardingStatus code: (value of the least-significant
-/// octet, reason). Source: IANA "Forwarding Status (Value 89)"
-/// sub-registry, reasons 0x40–0x42, 0x80–0x8F and 0xC0–0xC3 also RFC 7270
-/// §4.12 (0x89 is "bad TTL" per the registry and RFC 7270's table). Names
-/// are the registry wording lower-cased with spaces replaced by hyphens,
-/// as `flowsift convert` writes them.
-const FORWARDING_REASONS: [(u8, &str); 25] = [
-    (0x40, "unknown"),
-    (0x41, "fragmented"),
-    (0x42, "not-fragmented"),
-    (0x43, "tunneled"),
-    (0x44, "acl-redirect"),
-    (0x80, "unknown"),
-    (0x81, "acl-deny"),
-    (0x82, "acl-drop"),
-    (0x83, "unroutable"),
-    (0x84, "adjacency"),
-    (0x85, "fragmentation-and-df-set"),
-    (0x86, "bad-header-checksum"),
-    (0x87, "bad-total-length"),
-    (0x88, "bad-header-length"),
-    (0x89, "bad-ttl"),
-    (0x8A, "policer"),
-    (0x8B, "wred"),
-    (0x8C, "rpf"),
-    (0x8D, "for-us"),
-    (0x8E, "bad-output-interface"),
-    (0x8F, "hardware"),
-    (0xC0, "unknown"),
-    (0xC1, "punt-adjacency"),
-    (0xC2, "incomplete-adjacency"),
-    (0xC3, "for-us"),
-];
+pub const OUTCOME_DROPPED: &str = ipfix_core::ie::ForwardingOutcome::Dropped.name();
 
 /// The `forwardingOutcome` and `forwardingReason` of a `forwardingStatus`
-/// value, as `flowsift convert` derives them: only the least-significant
-/// octet has a meaning (IANA IE 89; RFC 7270 §4.12), its bits 7–6 are the
-/// outcome (00b unknown, 01b forwarded, 10b dropped, 11b consumed) and the
-/// whole octet names the reason; `None` for codes the registry leaves
-/// unassigned.
+/// value, as `flowsift convert` derives them: ipfix-core's reading of the
+/// IANA forwardingStatus registry (only the least-significant octet has a
+/// meaning, IANA IE 89; RFC 7270 §4.12); `None` for codes the registry
+/// leaves unassigned.
 pub fn forwarding_names(status: u32) -> (&'static str, Option<&'static str>) {
-    let [octet, ..] = status.to_le_bytes();
-    let outcome = match octet >> 6 {
-        0 => "unknown",
-        1 => "forwarded",
-        2 => OUTCOME_DROPPED,
-        _ => "consumed",
-    };
-    let reason = FORWARDING_REASONS
-        .iter()
-        .find(|(code, _)| *code == octet)
-        .map(|(_, name)| *name);
-    (outcome, reason)
+    let status = ipfix_core::ie::ForwardingStatus(status);
+    (status.outcome().name(), status.reason_name())
 }
 
 /// The type of a contract column, or `None` for a name the contract does
